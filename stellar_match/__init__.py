@@ -1,0 +1,70 @@
+"""stellar_match: interior TOV solutions matched to the exterior Schwarzschild metric.
+
+The Python API mirrors the command line::
+
+    import stellar_match as sm
+    eos = sm.read_piecewise_polytrope("sly", 34.384, [3.005, 2.988, 2.851])
+    seq = sm.sweep_eos(eos, "central_density", np.geomspace(3e14, 3e15, 100))
+    seq.summary["max_mass"], seq["radius"]
+    path = sm.run_config("runs/example_sweep.toml", "runs/example.h5")
+    run = sm.read_run(path)
+
+Data flow: config -> eos -> structure -> exterior -> sequence -> runfile
+(-> plots / exports); :mod:`stellar_match.cli` is the only module that prints.
+"""
+
+from importlib.metadata import PackageNotFoundError, version
+
+try:
+    __version__ = version("stellar_match")
+except PackageNotFoundError:  # running from a source tree without install
+    __version__ = "0+unknown"
+
+from . import exterior, units
+from .config import load_config, parse_config
+from .eos import (
+    EquationOfState,
+    Incompressible,
+    PiecewisePolytrope,
+    TableColumns,
+    from_table,
+    incompressible,
+    polytrope,
+    read_piecewise_polytrope,
+)
+from .errors import ConfigError, InputError, RunFileError, TableError
+from .runfile import STAR_DATASETS, RunFile, read_run
+from .sequence import EOSSequence, analyse_sequence
+from .structure import DEFAULT_STEPS, StepControl, solve_interiors
+from .sweep import run_config, solve_stars, sweep_eos
+
+__all__ = [
+    "__version__",
+    "exterior",
+    "units",
+    "load_config",
+    "parse_config",
+    "EquationOfState",
+    "Incompressible",
+    "PiecewisePolytrope",
+    "TableColumns",
+    "from_table",
+    "incompressible",
+    "polytrope",
+    "read_piecewise_polytrope",
+    "ConfigError",
+    "InputError",
+    "RunFileError",
+    "TableError",
+    "STAR_DATASETS",
+    "RunFile",
+    "read_run",
+    "EOSSequence",
+    "analyse_sequence",
+    "DEFAULT_STEPS",
+    "StepControl",
+    "solve_interiors",
+    "run_config",
+    "solve_stars",
+    "sweep_eos",
+]

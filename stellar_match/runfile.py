@@ -1,0 +1,241 @@
+"""HDF5 run files: one self-describing file per sweep.
+
+Layout (``format`` = "stellar_match.run", ``format_version`` = 1)::
+
+    /                       attrs: format, format_version, software_version,
+                                   created_utc, config_toml
+    /eos/<name>/            attrs: kind, parameters (JSON), table_sha256 (tables),
+                                   causal, max_sound_speed_squared, max_mass,
+                                   max_mass_radius, max_mass_central_density,
+                                   max_mass_status
+        <dataset>           1-D, one entry per star in sweep order, attr unit
+
+The datasets and their units are listed in :data:`STAR_DATASETS`.
+
+Writing follows the pattern of an HDF5 sampler backend: resizable datasets
+grow chunk by chunk as stars are solved and are flushed after each chunk;
+everything goes to ``<name>.partial`` and is renamed onto the final name
+only when the sweep is complete, so an interrupted sweep never leaves a
+half-written file under the requested name.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import os
+from pathlib import Path
+
+import h5py
+import numpy as np
+
+from .errors import RunFileError
+from .sequence import EOSSequence
+
+__all__ = ["STAR_DATASETS", "FORMAT", "FORMAT_VERSION", "RunFileWriter", "RunFile", "read_run"]
+
+FORMAT = "stellar_match.run"
+FORMAT_VERSION = 1
+
+#: Per-star datasets of every ``/eos/<name>`` group: name -> (unit, meaning).
+STAR_DATASETS: dict[str, tuple[str, str]] = {
+    "central_density": ("g/cm3", "central rest-mass density (incompressible: energy density / c^2)"),
+    "central_energy_density": ("g/cm3", "central energy density / c^2"),
+    "central_pressure": ("dyn/cm2", "central pressure"),
+    "mass": ("Msun", "gravitational mass"),
+    "radius": ("km", "areal radius of the surface p = 0"),
+    "baryon_mass": ("Msun", "baryon (rest) mass"),
+    "compactness": ("1", "GM/(Rc^2)"),
+    "surface_redshift": ("1", "z = (1 - 2GM/(Rc^2))^(-1/2) - 1"),
+    "surface_gravity": ("cm/s2", "GM/(R^2 sqrt(1 - 2GM/(Rc^2)))"),
+    "stable": ("1", "turning-point stability (dM/d rho_c > 0, up to the first maximum)"),
+}
+#: Per-EOS summary attributes and their units.
+SUMMARY_ATTRIBUTES: dict[str, str] = {
+    "causal": "1",
+    "max_sound_speed_squared": "c^2",
+    "max_mass": "Msun",
+    "max_mass_radius": "km",
+    "max_mass_central_density": "g/cm3",
+    "max_mass_status": "",
+}
+
+
+def _software_version() -> str:
+    from . import __version__
+
+    return __version__
+
+
+def _partial_name(path: Path) -> Path:
+    return path.with_name(path.name + ".partial")
+
+
+class RunFileWriter:
+    """Write a run file chunk by chunk; rename into place on :meth:`close`.
+
+    Parameters
+    ----------
+    path : str or Path
+        Final file name.
+    config_text : str
+        The full config, stored verbatim for reproducibility.
+    force : bool
+        Overwrite an existing file at ``path``.
+
+    Raises
+    ------
+    RunFileError
+        If ``path`` exists and ``force`` is false, or cannot be written.
+    """
+
+    def __init__(self, path: str | Path, *, config_text: str, force: bool = False) -> None:
+        self.path = Path(path)
+        if self.path.exists() and not force:
+            raise RunFileError("exists already; pass --force to overwrite it", source=str(self.path))
+        self.partial = _partial_name(self.path)
+        try:
+            self.path.parent.mkdir(parents=True, exist_ok=True)
+            self._file = h5py.File(self.partial, "w", track_order=True)
+        except OSError as exc:
+            raise RunFileError(f"cannot write here ({exc})", source=str(self.path)) from None
+        a = self._file.attrs
+        a["format"] = FORMAT
+        a["format_version"] = FORMAT_VERSION
+        a["software_version"] = _software_version()
+        a["created_utc"] = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+        a["config_toml"] = config_text
+        self._file.create_group("eos", track_order=True)
+
+    # -- the sink interface used by sweep_eos --------------------------------
+    def start_eos(self, name: str, kind: str, parameters: dict, table_sha256: str | None,
+                  columns: dict[str, tuple[str, str]]) -> None:
+        """Create ``/eos/<name>`` with empty resizable datasets."""
+        g = self._file["eos"].create_group(name, track_order=True)
+        g.attrs["kind"] = kind
+        g.attrs["parameters"] = json.dumps(parameters, default=str)
+        if table_sha256:
+            g.attrs["table_sha256"] = table_sha256
+        for col, (unit, meaning) in columns.items():
+            dtype = bool if col == "stable" else float
+            d = g.create_dataset(col, shape=(0,), maxshape=(None,), dtype=dtype, chunks=(4096,))
+            d.attrs["unit"] = unit
+            d.attrs["description"] = meaning
+        self._file.flush()
+
+    def append(self, name: str, chunk: dict[str, np.ndarray]) -> None:
+        """Append one chunk of stars (every per-star column but ``stable``)."""
+        g = self._file["eos"][name]
+        for col, values in chunk.items():
+            d = g[col]
+            n = d.shape[0]
+            d.resize((n + len(values),))
+            d[n:] = values
+        self._file.flush()
+
+    def finish_eos(self, name: str, late_columns: dict[str, np.ndarray], summary: dict,
+                   groups: dict | None = None) -> None:
+        """Write columns known only for the whole sequence, the summary and subgroups."""
+        g = self._file["eos"][name]
+        for col, values in late_columns.items():
+            d = g[col]
+            d.resize((len(values),))
+            d[:] = values
+        for k, v in summary.items():
+            g.attrs[k] = v
+        for sub, datasets in (groups or {}).items():
+            sg = g.create_group(sub)
+            for k, v in datasets.get("attrs", {}).items():
+                sg.attrs[k] = v
+            for col, (values, unit) in datasets["data"].items():
+                d = sg.create_dataset(col, data=values)
+                d.attrs["unit"] = unit
+        self._file.flush()
+
+    def close(self) -> Path:
+        """Close and move the completed file onto its final name."""
+        self._file.close()
+        os.replace(self.partial, self.path)
+        return self.path
+
+    def abort(self) -> Path:
+        """Close after an interruption, keeping ``<name>.partial`` for inspection."""
+        try:
+            self._file.close()
+        except Exception:  # noqa: BLE001 - the file may already be unusable
+            pass
+        return self.partial
+
+
+class RunFile:
+    """A run file read back into memory.
+
+    Attributes
+    ----------
+    path : Path
+    attrs : dict
+        Root attributes (``format``, ``software_version``, ``config_toml`` ...).
+    eos : dict of str -> EOSSequence
+        One entry per ``/eos/<name>`` group, in file order.
+    """
+
+    def __init__(self, path: Path, attrs: dict, eos: dict[str, EOSSequence]) -> None:
+        self.path, self.attrs, self.eos = path, attrs, eos
+
+    def __repr__(self) -> str:
+        return f"RunFile({str(self.path)!r}, eos={list(self.eos)})"
+
+
+def _attr(v):
+    if isinstance(v, bytes):
+        return v.decode()
+    if isinstance(v, np.generic):
+        return v.item()
+    return v
+
+
+def read_run(path: str | Path) -> RunFile:
+    """Read a run file written by :class:`RunFileWriter`.
+
+    Raises
+    ------
+    RunFileError
+        If the file is missing, not HDF5, or not a stellar_match run file.
+    """
+    path = Path(path)
+    if not path.exists():
+        partial = _partial_name(path)
+        hint = f" (an unfinished {partial.name} exists)" if partial.exists() else ""
+        raise RunFileError(f"run file not found{hint}", source=str(path))
+    try:
+        f = h5py.File(path, "r")
+    except OSError:
+        raise RunFileError("not an HDF5 file", source=str(path)) from None
+    with f:
+        attrs = {k: _attr(v) for k, v in f.attrs.items()}
+        if attrs.get("format") != FORMAT:
+            raise RunFileError(f"not a {FORMAT} file (format attribute missing)", source=str(path))
+        if int(attrs.get("format_version", -1)) > FORMAT_VERSION:
+            raise RunFileError(
+                f"format_version {attrs['format_version']} is newer than this software reads",
+                source=str(path),
+            )
+        sequences = {}
+        for name, g in f["eos"].items():
+            columns = {k: d[()] for k, d in g.items() if isinstance(d, h5py.Dataset)}
+            groups = {
+                k: {n: d[()] for n, d in sg.items()} | {"attrs": {a: _attr(v) for a, v in sg.attrs.items()}}
+                for k, sg in g.items()
+                if isinstance(sg, h5py.Group)
+            }
+            ga = {k: _attr(v) for k, v in g.attrs.items()}
+            sequences[name] = EOSSequence(
+                name=name,
+                kind=ga.pop("kind"),
+                parameters=json.loads(ga.pop("parameters", "{}")),
+                table_sha256=ga.pop("table_sha256", None),
+                columns=columns,
+                summary=ga,
+                groups=groups,
+            )
+    return RunFile(path, attrs, sequences)

@@ -1,0 +1,274 @@
+"""Sweeps: from an EOS and central values to a matched, analysed sequence.
+
+This module strings the layers together -- EOS -> structure solver ->
+exterior match -> sequence analysis -> run file -- for one EOS
+(:func:`sweep_eos`) or a whole config (:func:`run_config`).  Results go to a
+*sink*: in memory by default (notebooks), or a
+:class:`~stellar_match.runfile.RunFileWriter` (disk) with the same names.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from pathlib import Path
+from typing import Protocol
+
+import numpy as np
+
+from . import units
+from .config import SweepConfig, load_config
+from .eos import EquationOfState
+from .errors import ConfigError, InputError
+from .exterior import match_surface
+from .runfile import STAR_DATASETS, RunFileWriter
+from .sequence import EOSSequence, analyse_sequence
+from .structure import DEFAULT_STEPS, StepControl, solve_interiors
+
+__all__ = ["central_enthalpy", "solve_stars", "sweep_eos", "run_config", "MemorySink"]
+
+ProgressFn = Callable[[int], None]
+
+
+class Sink(Protocol):
+    def start_eos(self, name, kind, parameters, table_sha256, columns) -> None: ...
+    def append(self, name, chunk) -> None: ...
+    def finish_eos(self, name, late_columns, summary, groups=None) -> None: ...
+
+
+class MemorySink:
+    """Collects sweep output in memory (the default sink)."""
+
+    def __init__(self) -> None:
+        self.meta: dict[str, dict] = {}
+        self.chunks: dict[str, list[dict]] = {}
+
+    def start_eos(self, name, kind, parameters, table_sha256, columns) -> None:
+        self.meta[name] = {"kind": kind, "parameters": parameters, "table_sha256": table_sha256}
+        self.chunks[name] = []
+
+    def append(self, name, chunk) -> None:
+        self.chunks[name].append(chunk)
+
+    def finish_eos(self, name, late_columns, summary, groups=None) -> None:
+        self.meta[name].update(late=late_columns, summary=summary, groups=groups or {})
+
+    def sequence(self, name: str) -> EOSSequence:
+        m = self.meta[name]
+        cols = {k: np.concatenate([c[k] for c in self.chunks[name]]) for k in self.chunks[name][0]}
+        cols.update(m["late"])
+        groups = {
+            k: {n: v for n, (v, _) in g["data"].items()} | {"attrs": g.get("attrs", {})}
+            for k, g in m["groups"].items()
+        }
+        return EOSSequence(name, m["kind"], m["parameters"], cols, m["summary"], m["table_sha256"], groups)
+
+
+def central_enthalpy(eos: EquationOfState, quantity: str, values) -> np.ndarray:
+    """Central log-enthalpies for central densities (g/cm^3) or pressures (dyn/cm^2).
+
+    Raises
+    ------
+    InputError
+        For values outside a table's range or the wrong axis for the EOS.
+    """
+    values = np.asarray(values, dtype=float)
+    if np.any(~np.isfinite(values) | (values <= 0)):
+        raise InputError(f"{quantity} values must be positive and finite", key=f"sweep.{quantity}")
+    if quantity == "central_density":
+        h = eos.enthalpy_of_density(units.density_to_geometric(values))
+    elif quantity == "central_pressure":
+        h = eos.enthalpy_of_pressure(units.pressure_to_geometric(values))
+    else:
+        raise ValueError(f"unknown sweep quantity {quantity!r}")
+    if np.any(h > eos.h_max * (1 + 1e-12)):
+        top = values[np.argmax(h)]
+        unit = "g/cm3" if quantity == "central_density" else "dyn/cm2"
+        lo, hi = getattr(eos, "table_density_range", (np.nan, np.nan))
+        raise InputError(
+            f"{top:.4g} {unit} lies beyond the table of EOS {eos.name!r} "
+            f"(rest-mass density up to {hi:.4g} g/cm3)",
+            key=f"sweep.{quantity}",
+        )
+    return h
+
+
+def _columns_from_interiors(eos: EquationOfState, interiors) -> dict[str, np.ndarray]:
+    match = match_surface(interiors.mass, interiors.radius, interiors.central_enthalpy)
+    return {
+        "central_density": units.density_from_geometric(interiors.central_density),
+        "central_energy_density": units.density_from_geometric(interiors.central_energy_density),
+        "central_pressure": units.pressure_from_geometric(interiors.central_pressure),
+        "mass": units.mass_from_geometric(interiors.mass),
+        "radius": np.asarray(interiors.radius, dtype=float),
+        "baryon_mass": units.mass_from_geometric(interiors.baryon_mass),
+        "compactness": match.compactness,
+        "surface_redshift": match.surface_redshift,
+        "surface_gravity": match.surface_gravity,
+    }
+
+
+def solve_stars(
+    eos: EquationOfState,
+    *,
+    central_density=None,
+    central_pressure=None,
+    control: StepControl = DEFAULT_STEPS,
+) -> dict[str, np.ndarray]:
+    """Solve and match individual stars (no sequence analysis).
+
+    Parameters
+    ----------
+    eos : EquationOfState
+    central_density : array_like, optional
+        Central rest-mass densities in g/cm^3.
+    central_pressure : array_like, optional
+        Central pressures in dyn/cm^2 (give exactly one of the two).
+    control : StepControl, optional
+        Solver accuracy knobs.
+
+    Returns
+    -------
+    dict of str -> ndarray
+        The per-star run-file columns (``mass`` in Msun, ``radius`` in km, ...;
+        see ``runfile.STAR_DATASETS``) except ``stable``.
+    """
+    if (central_density is None) == (central_pressure is None):
+        raise InputError("give exactly one of central_density or central_pressure")
+    quantity = "central_density" if central_density is not None else "central_pressure"
+    values = central_density if central_density is not None else central_pressure
+    h = central_enthalpy(eos, quantity, np.atleast_1d(values))
+    return _columns_from_interiors(eos, solve_interiors(eos, h, control=control))
+
+
+def sweep_eos(
+    eos: EquationOfState,
+    quantity: str,
+    values,
+    *,
+    control: StepControl = DEFAULT_STEPS,
+    chunk_size: int = 2048,
+    sink: Sink | None = None,
+    progress: ProgressFn | None = None,
+) -> EOSSequence | None:
+    """Solve, match and analyse one EOS over a sweep of central values.
+
+    Parameters
+    ----------
+    eos : EquationOfState
+    quantity : {"central_density", "central_pressure"}
+        The sweep axis (g/cm^3 or dyn/cm^2).
+    values : array_like
+        Central values in sweep order.
+    control : StepControl, optional
+        Solver accuracy knobs.
+    chunk_size : int, optional
+        Stars per batch; each batch is handed to the sink when done.
+    sink : optional
+        Where results go; default in memory.
+    progress : callable, optional
+        Called with the number of stars finished after every chunk.
+
+    Returns
+    -------
+    EOSSequence or None
+        The sequence (None when writing to an external sink).
+    """
+    memory = sink is None
+    sink = MemorySink() if memory else sink
+    h_all = central_enthalpy(eos, quantity, values)
+    per_star = {k: v for k, v in STAR_DATASETS.items()}
+    sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, per_star)
+    mass = np.empty(h_all.size)
+    for start in range(0, h_all.size, chunk_size):
+        h = h_all[start : start + chunk_size]
+        cols = _columns_from_interiors(eos, solve_interiors(eos, h, control=control))
+        mass[start : start + h.size] = cols["mass"]
+        sink.append(eos.name, cols)
+        if progress is not None:
+            progress(h.size)
+
+    def refine(hc):
+        r = solve_interiors(eos, hc, control=control)
+        return r.mass, r.radius
+
+    analysis = analyse_sequence(h_all, units.mass_to_geometric(mass), refine)
+    h_top = analysis.max_enthalpy if np.isfinite(analysis.max_enthalpy) else float(h_all.max())
+    cs2 = eos.max_sound_speed_squared(h_top)
+    if np.isfinite(analysis.max_enthalpy):
+        _, _, rho_max = eos.state(np.array([analysis.max_enthalpy]))
+        rho_max_cgs = float(units.density_from_geometric(rho_max[0]))
+    else:
+        rho_max_cgs = float("nan")
+    summary = {
+        "causal": bool(cs2 <= 1.0),
+        "max_sound_speed_squared": float(cs2),
+        "max_mass": float(units.mass_from_geometric(analysis.max_mass)),
+        "max_mass_radius": float(analysis.max_mass_radius),
+        "max_mass_central_density": rho_max_cgs,
+        "max_mass_status": analysis.status,
+    }
+    sink.finish_eos(eos.name, {"stable": analysis.stable}, summary)
+    return sink.sequence(eos.name) if memory else None
+
+
+def _build_all(config: SweepConfig) -> list[EquationOfState]:
+    built = []
+    for spec in config.eos:
+        eos = spec.build()
+        try:
+            central_enthalpy(eos, config.axis.quantity, config.axis.values)
+        except InputError as exc:
+            raise ConfigError(f"eos[{spec.index}] ({spec.name}): {exc.message}",
+                              source=spec.source, key=exc.key) from None
+        built.append(eos)
+    return built
+
+
+def run_config(
+    config: SweepConfig | str | Path,
+    out: str | Path | None = None,
+    *,
+    force: bool = False,
+    progress: ProgressFn | None = None,
+) -> Path:
+    """Run every EOS of a config and write one HDF5 run file.
+
+    Parameters
+    ----------
+    config : SweepConfig or path
+        A loaded config or the path of a TOML file.
+    out : path, optional
+        Run file; default: the config's name with ``.h5`` beside it.
+    force : bool
+        Overwrite an existing run file.
+    progress : callable, optional
+        Called with the number of stars finished after every chunk.
+
+    Returns
+    -------
+    Path
+        The run file written.
+
+    Notes
+    -----
+    Every EOS is built and checked against the sweep range before any star
+    is solved, so a bad config fails at once.  On an exception (including
+    KeyboardInterrupt) the finished part stays in ``<out>.partial``.
+    """
+    if not isinstance(config, SweepConfig):
+        config = load_config(config)
+    if out is None:
+        if config.path is None:
+            raise InputError("give an output path for a config that has no file")
+        out = config.path.with_suffix(".h5")
+    built = _build_all(config)
+    control = DEFAULT_STEPS.scaled(config.solver.step_scale)
+    writer = RunFileWriter(out, config_text=config.text, force=force)
+    try:
+        for eos in built:
+            sweep_eos(eos, config.axis.quantity, config.axis.values, control=control,
+                      chunk_size=config.solver.chunk_size, sink=writer, progress=progress)
+    except BaseException:
+        writer.abort()
+        raise
+    return writer.close()
