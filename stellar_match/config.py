@@ -77,10 +77,13 @@ class EOSSpec:
         except ConfigError:
             raise
         except InputError as exc:
-            if exc.source:  # a table error already names its file and line
+            if exc.source and not exc.key:  # a table error already names its file and line
                 raise
+            # A key (e.g. columns.pressure.unit) is a mistake in this config, even
+            # when it was found while reading the table: name the config and block.
             sub = f"{key}.{exc.key}" if exc.key else key
-            raise ConfigError(exc.message, source=self.source, key=sub) from None
+            message = f"{exc.message} (table {exc.source})" if exc.source else exc.message
+            raise ConfigError(message, source=self.source, key=sub) from None
 
 
 @dataclass(frozen=True)

@@ -177,6 +177,11 @@ class PiecewisePolytrope(EquationOfState):
             raise InputError("a piece with Gamma = 1 has no polytropic energy density")
         # Energy-density continuity fixes a_i (Read et al. 2009, eq. 7),
         # written with p/rho at each boundary so that no K^(..) is formed.
+        if g.size > 1:
+            p_below = K[:-1] * rho_lo[1:] ** g[:-1]
+            p_above = K[1:] * rho_lo[1:] ** g[1:]
+            if np.any(np.abs(p_above / p_below - 1.0) > 1e-9):
+                raise ValueError("pieces must be continuous in pressure at their boundaries")
         a = np.empty_like(g)
         a[0] = self.first_a
         for i in range(1, g.size):
@@ -243,13 +248,16 @@ class PiecewisePolytrope(EquationOfState):
         return self.enthalpy_of_density(rho)
 
     def max_sound_speed_squared(self, h_top):
-        # Inside a piece c_s^2 = Gamma p/(eps + p) grows with rho, so the
-        # maximum sits at h_top or at the upper end of a lower piece.
+        # Inside a piece c_s^2 = Gamma p/(eps + p) is monotone in rho (rising
+        # for Gamma > 1, falling for Gamma < 1), so its maximum over [0, h_top]
+        # sits at an end of a piece: check both sides of every boundary.
         inside = self.breakpoints_h[self.breakpoints_h < h_top]
-        hs = np.concatenate([inside, [h_top]])
-        p, eps, _ = self.state(hs)
-        g = self.gamma[self.piece_index(hs)]
-        return float(np.max(g * p / (eps + p)))
+        hs = np.concatenate([inside, inside, [h_top]])
+        pieces = np.concatenate([np.arange(inside.size), np.arange(inside.size) + 1,
+                                 self.piece_index(np.array([h_top]))])
+        coeff = {k: v[pieces] for k, v in self._coeff.items()}
+        p, eps, _ = self.state_from_coefficients(hs, coeff)
+        return float(np.max(self.gamma[pieces] * p / (eps + p)))
 
 
 @dataclass(eq=False)
@@ -326,6 +334,20 @@ def _geometric_K(K_dyn: np.ndarray, gamma: np.ndarray) -> np.ndarray:
     return K_dyn * units.PRESSURE_CGS_TO_GEOM / units.DENSITY_CGS_TO_GEOM**gamma
 
 
+def sly_crust_dividing_densities() -> np.ndarray:
+    """Densities (g/cm^3) where consecutive SLy crust pieces have equal pressure.
+
+    Table II lists K, Gamma and rounded dividing densities that make p
+    continuous only to about 1e-4; a pressure jump would be a spurious force
+    in hydrostatic equilibrium, so the boundaries are recomputed from
+    K_i rho^Gamma_i = K_(i+1) rho^Gamma_(i+1).  They agree with the printed
+    ones to about 1e-3 (checked in tests/test_eos.py).
+    """
+    K = np.array([k for k, _, _ in SLY_CRUST])
+    g = np.array([g for _, g, _ in SLY_CRUST])
+    return (K[:-1] / K[1:]) ** (1.0 / (g[1:] - g[:-1]))
+
+
 def polytrope(name: str, K: float, gamma: float) -> PiecewisePolytrope:
     """Single polytrope p = K rho^Gamma, eps = rho c^2 + p/(Gamma - 1).
 
@@ -389,13 +411,13 @@ def read_piecewise_polytrope(
     if abs(g1 - crust_g[-1]) < 1e-12:
         raise InputError("Gamma_1 equals the crust's last Gamma; no joining density", key="gammas")
     rho_join = (crust_K[-1] / K1) ** (1.0 / (g1 - crust_g[-1]))
-    if not (SLY_CRUST[2][2] < rho_join < rho1):
+    if not (sly_crust_dividing_densities()[-1] < rho_join < rho1):
         raise InputError(
             f"log10_p1 = {log10_p1} with Gamma_1 = {g1} meets the SLy crust at "
             f"{rho_join:.3e} g/cm^3, outside ({SLY_CRUST[2][2]:.3e}, {rho1:.3e})",
             key="log10_p1",
         )
-    lower = np.array([0.0, SLY_CRUST[0][2], SLY_CRUST[1][2], SLY_CRUST[2][2], rho_join, rho1, rho2])
+    lower = np.array([0.0, *sly_crust_dividing_densities(), rho_join, rho1, rho2])
     K = np.concatenate([crust_K, [K1, K2, K3]])
     g = np.concatenate([crust_g, gammas])
     return PiecewisePolytrope(
@@ -452,7 +474,7 @@ def read_table_file(path: Path, columns: TableColumns) -> tuple[np.ndarray, np.n
         raise TableError(f"cannot read table file ({exc.strerror})", source=str(path)) from None
     sha = hashlib.sha256(raw).hexdigest()
     try:
-        text = raw.decode("utf-8")
+        text = raw.decode("utf-8-sig")  # spreadsheets often write a byte-order mark
     except UnicodeDecodeError:
         raise TableError("table file is not UTF-8 text", source=str(path)) from None
     header: list[str] | None = None
@@ -576,6 +598,20 @@ def from_table(name: str, path: str | Path, columns: TableColumns) -> PiecewiseP
             "continued to zero pressure; add low-density (crust) rows",
             source=str(path), row=lines[1],
         )
+    # Consistency of the table's own energy column with the first law
+    # d(eps/rho) = p d rho / rho^2, integrated exactly along p = K_i rho^Gamma_i
+    # from the first row.  Checked before the EOS is built: an energy column in
+    # the wrong unit must be reported as such, with its row, and not as the
+    # round-off failure it causes in the enthalpy of the pieces.
+    eps_over_rho = eps[0] / rho[0] + np.concatenate([[0.0], np.cumsum(np.diff(p / rho) / (gamma - 1.0))])
+    deviation = np.abs(rho * eps_over_rho / eps - 1.0)
+    worst = int(np.argmax(deviation))
+    if deviation[worst] > FIRST_LAW_TOLERANCE:
+        raise TableError(
+            f"energy density differs by {100 * deviation[worst]:.1f}% from the first law "
+            "d eps/d n = (eps + p)/n integrated from the first row; check the column units",
+            source=str(path), row=lines[worst],
+        )
     K = p[:-1] / rho[:-1] ** gamma
     lower = np.concatenate([[0.0], rho[1:-1]])
     first_a = (eps[0] - p[0] / (gamma[0] - 1.0)) / rho[0] - 1.0
@@ -585,17 +621,7 @@ def from_table(name: str, path: str | Path, columns: TableColumns) -> PiecewiseP
             first_a=first_a, table_sha256=sha,
         )
     except InputError as exc:
-        raise TableError(exc.message, source=str(path)) from None
-    # Consistency of the table's own energy column with the first law.
-    _, eps_fit, _ = eos.state(eos.enthalpy_of_density(rho))
-    deviation = np.abs(eps_fit / eps - 1.0)
-    worst = int(np.argmax(deviation))
-    if deviation[worst] > FIRST_LAW_TOLERANCE:
-        raise TableError(
-            f"energy density differs by {100 * deviation[worst]:.1f}% from the first law "
-            "d eps/d n = (eps + p)/n integrated from the first row; check the column units",
-            source=str(path), row=lines[worst],
-        )
+        raise TableError(exc.message, source=str(path), row=lines[0]) from None
     eos.h_max = float(eos.enthalpy_of_density(rho[-1]))
     eos.first_law_deviation = float(deviation[worst])
     eos.table_density_range = (float(rho_cgs[0]), float(rho_cgs[-1]))

@@ -47,7 +47,9 @@ class InputError(Exception):
             where.append(self.key)
         if self.row is not None:
             where.append(f"line {self.row}")
-        return ": ".join([*where, self.message])
+        text = ": ".join([*where, self.message])
+        # One line is a promise to the CLI; TOML keys and paths may hold line breaks.
+        return "\\n".join(text.splitlines())
 
 
 class ConfigError(InputError):

@@ -145,10 +145,10 @@ class StepControl:
         The stepping scheme.
     """
 
-    density_step: float = 0.2
-    enthalpy_step: float = 0.02
+    density_step: float = 0.12
+    enthalpy_step: float = 0.012
     envelope_density: float = 1e8
-    startup_growth: float = 1.0
+    startup_growth: float = 0.6
     start_offset: float = 1e-4
     tableau: RungeKuttaTableau = DORMAND_PRINCE_5
 
@@ -258,7 +258,11 @@ def eos_nodes(eos: EquationOfState, control: StepControl, h_top: float) -> np.nd
         j = np.clip(np.searchsorted(breaks, nodes), 1, breaks.size) - 1
         near = np.minimum(np.abs(nodes - breaks[j]),
                           np.abs(nodes - breaks[np.minimum(j + 1, breaks.size - 1)]))
-        spacing = np.minimum(control.enthalpy_step, np.gradient(nodes) if nodes.size > 1 else np.inf)
+        # local spacing from the EOS at the node itself, so the node set below
+        # any h is the same whatever h_top is (batch-independent results)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            cs2 = np.nan_to_num(eos.sound_speed_squared(nodes), nan=np.inf)
+        spacing = np.minimum(control.enthalpy_step, control.density_step * cs2)
         nodes = nodes[near > spacing / 3.0]
     return np.unique(np.concatenate([nodes, breaks]))
 

@@ -272,3 +272,141 @@ def run_config(
         writer.abort()
         raise
     return writer.close()
+
+
+# --- Rebuilding an EOS from a run file, and stars at given masses ------------
+
+def eos_from_sequence(seq: EOSSequence) -> EquationOfState:
+    """Rebuild the EOS of a run-file group from its ``kind`` and ``parameters``.
+
+    Parameters
+    ----------
+    seq : EOSSequence
+        A sequence read from a run file (or returned by :func:`sweep_eos`).
+
+    Returns
+    -------
+    EquationOfState
+        The same EOS the sweep used; a tabulated EOS is read again from the
+        table path stored in ``parameters["path"]``.
+
+    Raises
+    ------
+    InputError
+        For an unknown kind, missing parameters, a table file that is gone,
+        or one whose SHA-256 differs from the run file's ``table_sha256``
+        (the table changed since the sweep, so stars solved now would not
+        belong to the stored sequence).
+    """
+    from .eos import TableColumns, from_table, incompressible, polytrope, read_piecewise_polytrope
+
+    p = seq.parameters
+    try:
+        if seq.kind == "polytrope":
+            return polytrope(seq.name, float(p["K"]), float(p["gamma"]))
+        if seq.kind == "piecewise_polytrope":
+            return read_piecewise_polytrope(seq.name, float(p["log10_p1"]), p["gammas"])
+        if seq.kind == "incompressible":
+            return incompressible(seq.name, float(p["energy_density"]))
+        if seq.kind == "table":
+            cols = p["columns"]
+            density_kind = "baryon_density" if "baryon_density" in cols else "rest_mass_density"
+            columns = TableColumns(tuple(cols["pressure"]), tuple(cols["energy_density"]),
+                                   tuple(cols[density_kind]), density_kind)
+            eos = from_table(seq.name, p["path"], columns)
+            if seq.table_sha256 and eos.table_sha256 != seq.table_sha256:
+                raise InputError(
+                    f"table of EOS {seq.name!r} changed since the run (sha256 {eos.table_sha256[:12]}... "
+                    f"!= {seq.table_sha256[:12]}... in the run file); re-run the sweep",
+                    source=str(p["path"]),
+                )
+            return eos
+    except KeyError as exc:
+        raise InputError(f"EOS {seq.name!r}: run file lacks parameter {exc.args[0]!r}",
+                         key=f"eos/{seq.name}/parameters") from None
+    raise InputError(f"EOS {seq.name!r}: cannot rebuild kind {seq.kind!r}", key=f"eos/{seq.name}/kind")
+
+
+def _stable_branch(seq: EOSSequence, axis: str) -> tuple[np.ndarray, np.ndarray]:
+    """(central value, mass) of the stable stars in ascending central value, ending at M_max."""
+    x = np.asarray(seq[axis], dtype=float)[seq.stable]
+    m = np.asarray(seq["mass"], dtype=float)[seq.stable]
+    order = np.argsort(x)
+    x, m = x[order], m[order]
+    m_max = float(seq.summary.get("max_mass", np.nan))
+    x_max = float(seq.summary.get("max_mass_central_density", np.nan))
+    if axis == "central_density" and np.isfinite(m_max) and np.isfinite(x_max) and (x.size == 0 or x_max > x[-1]):
+        x, m = np.append(x, x_max), np.append(m, m_max)
+    return x, m
+
+
+def stars_at_masses(
+    eos: EquationOfState,
+    seq: EOSSequence,
+    masses,
+    *,
+    control: StepControl = DEFAULT_STEPS,
+    rtol: float = 1e-6,
+) -> dict[str, np.ndarray]:
+    """Solve the stable-branch star of each requested gravitational mass.
+
+    For every mass the central density is root-found with
+    :func:`scipy.optimize.brentq` between the two stable sweep samples that
+    bracket it (the maximum-mass star closes the branch), each trial being a
+    fresh :func:`solve_stars`; the result is solved once more at the root.
+    The incompressible EOS, whose central density is constant, is
+    root-found in the central pressure instead.
+
+    Parameters
+    ----------
+    eos : EquationOfState
+        The EOS of ``seq`` (see :func:`eos_from_sequence`).
+    seq : EOSSequence
+        Its sweep, whose ``stable`` flags and samples give the brackets.
+    masses : array_like
+        Gravitational masses in Msun.
+    control : StepControl, optional
+        Solver accuracy knobs (use the run's, for stars consistent with it).
+    rtol : float
+        Relative accuracy of the mass of every star found.
+
+    Returns
+    -------
+    dict of str -> ndarray
+        The per-star run-file columns of :func:`solve_stars`, one row per
+        requested mass; rows are NaN where the stable branch of the sweep
+        does not reach the mass (above M_max or below the lightest stable
+        sample).
+    """
+    from scipy.optimize import brentq
+
+    axis = "central_pressure" if seq.kind == "incompressible" else "central_density"
+    x, m = _stable_branch(seq, axis)
+    targets = np.atleast_1d(np.asarray(masses, dtype=float))
+    rows: list[dict[str, np.ndarray] | None] = []
+
+    def solve_at(log_x: float) -> dict[str, np.ndarray]:
+        return solve_stars(eos, control=control, **{axis: [float(np.exp(log_x))]})
+
+    for target in targets:
+        inside = np.flatnonzero((m[:-1] <= target) & (target <= m[1:]))
+        if inside.size == 0:
+            rows.append(None)
+            continue
+        i = int(inside[0])
+
+        def miss(lx: float, target: float = target) -> float:
+            return float(solve_at(lx)["mass"][0]) / target - 1.0
+
+        # M ~ rho_c^O(1) on the stable branch: a log-density error dx is a relative mass error ~ dx
+        found = None
+        for lo, hi in ((i, i + 1), (max(i - 1, 0), min(i + 2, x.size - 1))):
+            try:  # the wider bracket covers fresh solves that differ from the samples by solver noise
+                found = brentq(miss, np.log(x[lo]), np.log(x[hi]), xtol=rtol * 1e-3, rtol=4 * np.finfo(float).eps)
+                break
+            except ValueError:
+                continue
+        rows.append(None if found is None else solve_at(found))
+
+    names = next((list(r) for r in rows if r is not None), [k for k in STAR_DATASETS if k != "stable"])
+    return {k: np.array([r[k][0] if r is not None else np.nan for r in rows]) for k in names}
