@@ -94,6 +94,14 @@ class EquationOfState(ABC):
         stage; it is the hot path.
         """
 
+    @staticmethod
+    @abstractmethod
+    def slope_from_coefficients(p, eps, coeff) -> np.ndarray:
+        """d eps / d h = (eps + p) / c_s^2 from (p, eps) and per-point coefficients."""
+
+    #: Energy density just inside the surface (km^-2): 0 unless the EOS ends in a jump.
+    surface_energy_density: float = 0.0
+
     def state(self, h) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Pressure, energy density and rest-mass density at log-enthalpy ``h``.
 
@@ -226,12 +234,20 @@ class PiecewisePolytrope(EquationOfState):
         eps = coeff["one_plus_a"] * rho + p * coeff["inv_gm1"]
         return p, eps, rho
 
+    @staticmethod
+    def slope_from_coefficients(p, eps, coeff):
+        # c_s^2 = Gamma p / (eps + p) inside a piece, so d eps/dh = (eps + p)^2 / (Gamma p);
+        # at the surface itself (p = 0) the limit is 0 for Gamma < 2, the usual crust case.
+        with np.errstate(divide="ignore", invalid="ignore"):
+            slope = (eps + p) ** 2 / (coeff["gamma"] * p)
+        return np.where(p > 0, slope, 0.0)
+
     def energy_density_slope(self, h):
         h = np.asarray(h, dtype=float)
-        p, eps, _ = self.state(h)
-        g = self.gamma[self.piece_index(h)]
-        # c_s^2 = Gamma p / (eps + p) inside a piece
-        return (eps + p) ** 2 / (g * p)
+        idx = self.piece_index(h)
+        coeff = {k: v[idx] for k, v in self._coeff.items()}
+        p, eps, _ = self.state_from_coefficients(h, coeff)
+        return self.slope_from_coefficients(p, eps, coeff)
 
     def enthalpy_of_density(self, rho):
         rho = np.asarray(rho, dtype=float)
@@ -281,6 +297,7 @@ class Incompressible(EquationOfState):
             raise InputError("energy_density must be positive and finite")
         self.breakpoints_h = np.empty(0)
         self._coeff = {"eps0": np.array([self.energy_density])}
+        self.surface_energy_density = self.energy_density
 
     def piece_index(self, h):
         return np.zeros(np.shape(h), dtype=np.intp)
@@ -294,6 +311,10 @@ class Incompressible(EquationOfState):
         p = eps0 * np.expm1(h)
         eps = eps0 + 0.0 * p
         return p, eps, eps
+
+    @staticmethod
+    def slope_from_coefficients(p, eps, coeff):
+        return np.zeros_like(p)
 
     def energy_density_slope(self, h):
         return np.zeros(np.shape(h))
@@ -401,6 +422,8 @@ def read_piecewise_polytrope(
     if any(not np.isfinite(x) or x <= 0 for x in gammas):
         raise InputError("gammas must be positive", key="gammas")
     rho1, rho2 = READ_CORE_DIVIDING_DENSITIES
+    if not (np.isfinite(log10_p1) and 30.0 < log10_p1 < 40.0):
+        raise InputError(f"log10_p1 = {log10_p1} is outside (30, 40) (log10 of dyn/cm^2)", key="log10_p1")
     p1 = 10.0 ** float(log10_p1)
     g1, g2, g3 = gammas
     K1 = p1 / rho1**g1

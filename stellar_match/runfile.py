@@ -9,6 +9,9 @@ Layout (``format`` = "stellar_match.run", ``format_version`` = 1)::
                                    max_mass_radius, max_mass_central_density,
                                    max_mass_status
         <dataset>           1-D, one entry per star in sweep order, attr unit
+        targets/            (with [sweep] target_masses) one entry per requested mass,
+                            attr status: per-target "found" or why the row is NaN
+        binaries/           (with [sweep] binaries) one entry per pair
 
 The datasets and their units are listed in :data:`STAR_DATASETS`.
 
@@ -32,7 +35,7 @@ import numpy as np
 from .errors import RunFileError
 from .sequence import EOSSequence
 
-__all__ = ["STAR_DATASETS", "FORMAT", "FORMAT_VERSION", "RunFileWriter", "RunFile", "read_run"]
+__all__ = ["STAR_DATASETS", "TARGET_DATASETS", "BINARY_DATASETS", "FORMAT", "FORMAT_VERSION", "RunFileWriter", "RunFile", "read_run"]
 
 FORMAT = "stellar_match.run"
 FORMAT_VERSION = 1
@@ -48,7 +51,28 @@ STAR_DATASETS: dict[str, tuple[str, str]] = {
     "compactness": ("1", "GM/(Rc^2)"),
     "surface_redshift": ("1", "z = (1 - 2GM/(Rc^2))^(-1/2) - 1"),
     "surface_gravity": ("cm/s2", "GM/(R^2 sqrt(1 - 2GM/(Rc^2)))"),
+    "love_number_k2": ("1", "quadrupolar tidal Love number k2 (Hinderer 2008)"),
+    "tidal_deformability": ("1", "dimensionless tidal deformability Lambda = (2/3) k2 (Rc^2/GM)^5"),
+    "moment_of_inertia": ("g cm2", "slow-rotation moment of inertia (Hartle 1967)"),
+    "binding_energy": ("Msun", "M_baryon - M"),
     "stable": ("1", "turning-point stability (dM/d rho_c > 0, up to the first maximum)"),
+}
+#: Datasets of the ``targets`` subgroup (one entry per requested mass).
+TARGET_DATASETS: dict[str, str] = {
+    "requested_mass": "Msun",
+    "mass": "Msun",
+    "radius": "km",
+    "central_density": "g/cm3",
+    "surface_redshift": "1",
+    "tidal_deformability": "1",
+    "moment_of_inertia": "g cm2",
+}
+#: Datasets of the ``binaries`` subgroup (one entry per requested pair).
+BINARY_DATASETS: dict[str, str] = {
+    "mass_1": "Msun",
+    "mass_2": "Msun",
+    "chirp_mass": "Msun",
+    "lambda_tilde": "1",
 }
 #: Per-EOS summary attributes and their units.
 SUMMARY_ATTRIBUTES: dict[str, str] = {
@@ -91,6 +115,8 @@ class RunFileWriter:
 
     def __init__(self, path: str | Path, *, config_text: str, force: bool = False) -> None:
         self.path = Path(path)
+        if self.path.is_dir():  # found now, not by the rename after the whole sweep
+            raise RunFileError("is a folder; give a file name for the run file", source=str(self.path))
         if self.path.exists() and not force:
             raise RunFileError("exists already; pass --force to overwrite it", source=str(self.path))
         self.partial = _partial_name(self.path)
@@ -220,6 +246,8 @@ def read_run(path: str | Path) -> RunFile:
                 f"format_version {attrs['format_version']} is newer than this software reads",
                 source=str(path),
             )
+        if not isinstance(f.get("eos"), h5py.Group):
+            raise RunFileError("incomplete run file: no /eos group", source=str(path))
         sequences = {}
         for name, g in f["eos"].items():
             columns = {k: d[()] for k, d in g.items() if isinstance(d, h5py.Dataset)}
@@ -229,6 +257,8 @@ def read_run(path: str | Path) -> RunFile:
                 if isinstance(sg, h5py.Group)
             }
             ga = {k: _attr(v) for k, v in g.attrs.items()}
+            if "kind" not in ga:
+                raise RunFileError(f"incomplete run file: /eos/{name} has no kind attribute", source=str(path))
             sequences[name] = EOSSequence(
                 name=name,
                 kind=ga.pop("kind"),

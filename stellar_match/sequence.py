@@ -22,7 +22,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["SequenceAnalysis", "analyse_sequence", "EOSSequence"]
+__all__ = ["SequenceAnalysis", "analyse_sequence", "EOSSequence", "chirp_mass", "lambda_tilde"]
 
 
 @dataclass
@@ -226,3 +226,20 @@ def interpolate_on_stable_branch(seq: EOSSequence, mass: float, column: str) -> 
         return float("nan")
     order = np.argsort(m)
     return float(np.interp(mass, m[order], np.asarray(seq[column])[st][order]))
+
+
+def chirp_mass(m1, m2):
+    """Chirp mass (m1 m2)^(3/5) / (m1 + m2)^(1/5), same unit as the inputs."""
+    m1, m2 = np.asarray(m1, dtype=float), np.asarray(m2, dtype=float)
+    return (m1 * m2) ** 0.6 / (m1 + m2) ** 0.2
+
+
+def lambda_tilde(m1, m2, lambda1, lambda2):
+    """Binary tidal deformability of a pair (Flanagan & Hinderer 2008; Favata 2014, eq. 5).
+
+    Lambda_tilde = (16/13) [(m1 + 12 m2) m1^4 L1 + (m2 + 12 m1) m2^4 L2] / (m1 + m2)^5;
+    equal to Lambda for two identical stars.
+    """
+    m1, m2 = np.asarray(m1, dtype=float), np.asarray(m2, dtype=float)
+    l1, l2 = np.asarray(lambda1, dtype=float), np.asarray(lambda2, dtype=float)
+    return 16.0 / 13.0 * ((m1 + 12 * m2) * m1**4 * l1 + (m2 + 12 * m1) * m2**4 * l2) / (m1 + m2) ** 5

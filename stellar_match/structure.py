@@ -165,6 +165,12 @@ class StepControl:
 
 
 DEFAULT_STEPS = StepControl()
+#: A star's envelope starts at most this fraction of its central density down
+#: (so low-density, Newtonian stars keep density-following steps).
+ENVELOPE_FRACTION = 1e-6
+#: EOS values at a step edge h = 0 are taken at SURFACE_GUARD * h_c instead:
+#: d eps/dh diverges at p = 0 when the outermost piece has Gamma > 2.
+SURFACE_GUARD = 1e-12
 
 
 @dataclass
@@ -183,6 +189,11 @@ class StarInteriors:
         Gravitational mass M (km, i.e. G M / c^2).
     baryon_mass : ndarray
         Baryon (rest) mass M_b (km).
+    love_number_k2, tidal_deformability : ndarray or None
+        Quadrupolar tidal Love number k2 and Lambda = (2/3) k2 (R/M)^5
+        (None when solved without the response equations).
+    moment_of_inertia : ndarray or None
+        Slow-rotation moment of inertia I (km^3, i.e. G I / c^2).
     """
 
     central_enthalpy: np.ndarray
@@ -192,6 +203,9 @@ class StarInteriors:
     radius: np.ndarray
     mass: np.ndarray
     baryon_mass: np.ndarray
+    love_number_k2: np.ndarray | None = None
+    tidal_deformability: np.ndarray | None = None
+    moment_of_inertia: np.ndarray | None = None
 
 
 def central_series(p_c, eps_c, rho_c, deps_dh_c, x):
@@ -221,6 +235,26 @@ def central_series(p_c, eps_c, rho_c, deps_dh_c, x):
     return np.stack([u1 * x + u2 * x * x, v0 + v1 * x, w0 + w1 * x])
 
 
+def response_series(p_c, eps_c, deps_dh_c, h_c, x):
+    """Tidal and rotational variables (y, omega, psi) a distance ``x`` off the centre.
+
+    y = 2 + a r^2 with a = -(4 pi / 7)(eps_c / 3 + 11 p_c + eps'_c), from the
+    r^2 terms of the y-equation of Postnikov, Prakash & Lattimer (2010,
+    PRD 82, 024016, eq. 13); omega = 1 + (8 pi / 5)(eps_c + p_c) r^2 and
+    psi = psi_0 + psi_1 x from Hartle's (1967, ApJ 150, 1005, eq. 43)
+    frame-dragging equation, with the arbitrary normalisation omega_c = 1
+    (the equation is linear).  Derivation in docs of :func:`response_rhs`.
+    """
+    v0 = FOUR_PI * eps_c / 3.0
+    u1 = 3.0 / (2.0 * np.pi * (eps_c + 3.0 * p_c))
+    a = -(FOUR_PI / 7.0) * (eps_c / 3.0 + 11.0 * p_c + deps_dh_c)
+    y = 2.0 + a * u1 * x
+    omega1 = u1 * 1.6 * np.pi * (eps_c + p_c)
+    psi0 = 3.2 * np.pi * (eps_c + p_c) * np.exp(h_c)
+    f1 = psi0 * 5.0 * (-deps_dh_c / (eps_c + p_c) - 2.0 + u1 * v0 + omega1)
+    return np.stack([y, 1.0 + omega1 * x, psi0 + f1 / 7.0 * x])
+
+
 def structure_rhs(y, p, eps, rho):
     """d(u, v, w)/dh for state ``y`` (shape (3, n)) and EOS values at the same h."""
     u, v, w = y
@@ -232,57 +266,167 @@ def structure_rhs(y, p, eps, rho):
     return np.stack([du, dv, dw])
 
 
-def eos_nodes(eos: EquationOfState, control: StepControl, h_top: float) -> np.ndarray:
-    """Star-independent step edges of one EOS below ``h_top``, ascending.
+def response_rhs(h, y, p, eps, rho, deps_dh):
+    """d/dh of (u, v, w, y, omega, psi): structure plus tidal and rotational response.
 
-    The union of the EOS breakpoints, nodes every ``density_step`` in
-    ln(rho) above the envelope density, and nodes every ``enthalpy_step`` in h.
-    A density or enthalpy node closer than a third of its spacing to a
-    breakpoint is dropped, so table knots do not double the step count.
+    With q = (du/dh)/u, f = 1 - 2m/r, e^lambda = 1/f:
+
+    * tidal (Hinderer 2008, ApJ 677, 1216; Postnikov et al. 2010, eq. 13 in
+      the variable h, using dr/dh = r q / 2):
+      dy/dh = -(q/2) [y^2 + y e^lambda (1 + 4 pi r^2 (p - eps)) + r^2 Q],
+      r^2 Q = 4 pi r^2 e^lambda (5 eps + 9 p + d eps/dh) - 6 e^lambda - r^2 nu'^2,
+      with (eps + p)/c_s^2 = d eps/dh and r^2 nu'^2 = 4 u^2 (v + 4 pi p)^2 / f^2;
+    * frame dragging (Hartle 1967, eq. 43, (r^4 j omega')' + 4 r^3 j' omega = 0,
+      j = e^(-(nu+lambda)/2)), as phi = r^4 j omega' = C r^5 psi with the
+      lapse written jhat = e^h sqrt(f) up to the surface constant C:
+      d omega/dh = (du/dh) psi / (2 jhat),
+      d psi/dh = (q/2) [16 pi (eps + p) e^lambda jhat omega - 5 psi].
+    """
+    u, v, w, yy, om, psi = y
+    f = 1.0 - 2.0 * u * v
+    dd = v + FOUR_PI * p
+    du = -2.0 * f / dd
+    q = du / u
+    e_lam = 1.0 / f
+    dv = q * (2.0 * np.pi * eps - 1.5 * v)
+    sqrt_f = np.sqrt(f)
+    dw = q * (2.0 * np.pi * rho / sqrt_f - 1.5 * w)
+    u_q = FOUR_PI * u * e_lam * (5.0 * eps + 9.0 * p + deps_dh) - 6.0 * e_lam - 4.0 * (u * dd * e_lam) ** 2
+    dy = -0.5 * q * (yy * yy + yy * e_lam * (1.0 + FOUR_PI * u * (p - eps)) + u_q)
+    jhat = np.exp(h) * sqrt_f
+    dom = 0.5 * du * psi / jhat
+    dpsi = 0.5 * q * (16.0 * np.pi * (eps + p) * e_lam * jhat * om - 5.0 * psi)
+    return np.stack([du, dv, dw, dy, dom, dpsi])
+
+
+def _hinderer_denominator_series(order: int = 40) -> np.ndarray:
+    """Coefficients (alpha_n, beta_n) with D(C, y) = C^5 sum_n (alpha_n + beta_n y) C^n.
+
+    D is the denominator of k2 in Hinderer (2008, erratum 2009), eq. 23.  Its
+    closed form cancels through O(C^4), losing ~16 - 5 log10(1/C) digits; the
+    series, in exact rational arithmetic from ln(1 - 2C) = -sum (2C)^k / k, has
+    no cancellation.
+    """
+    from fractions import Fraction as F
+
+    n_terms = order + 6
+    # polynomial in C as dict power -> (const, y-coefficient)
+    def add(acc, power, c0, c1):
+        a0, a1 = acc.get(power, (F(0), F(0)))
+        acc[power] = (a0 + c0, a1 + c1)
+
+    acc: dict[int, tuple] = {}
+    # 2C[6 - 3y + 3C(5y - 8)]
+    add(acc, 1, F(12), F(-6))
+    add(acc, 2, F(-48), F(30))
+    # 4C^3 [13 - 11y + C(3y - 2) + 2C^2 (1 + y)]
+    add(acc, 3, F(52), F(-44))
+    add(acc, 4, F(-8), F(12))
+    add(acc, 5, F(8), F(8))
+    # 3(1 - 2C)^2 [2 - y + 2C(y - 1)] = 3(1 - 4C + 4C^2)(2 - y - 2C + 2Cy), expanded exactly
+    pre = {}
+    poly_a = {0: 1, 1: -4, 2: 4}
+    poly_b = {0: (F(2), F(-1)), 1: (F(-2), F(2))}
+    for ia, ca in poly_a.items():
+        for ib, (b0, b1) in poly_b.items():
+            c0, c1 = pre.get(ia + ib, (F(0), F(0)))
+            pre[ia + ib] = (c0 + 3 * ca * b0, c1 + 3 * ca * b1)
+    for k in range(1, n_terms + 1):
+        lk = -F(2) ** k / k
+        for ip, (c0, c1) in pre.items():
+            if ip + k <= n_terms:
+                add(acc, ip + k, c0 * lk, c1 * lk)
+    for power in range(5):
+        assert acc.get(power, (0, 0)) == (0, 0), "Hinderer denominator must start at C^5"
+    return np.array([[float(acc[5 + n][0]), float(acc[5 + n][1])] for n in range(order)])
+
+
+_D_SERIES = _hinderer_denominator_series()
+
+
+def love_number_k2(compactness, y_surface):
+    """Quadrupolar tidal Love number k2 from C = M/R and y = R H'(R)/H(R).
+
+    Hinderer (2008, ApJ 677, 1216, with the 2009 erratum), eq. 23.  For
+    C < 0.15 the denominator is summed as a series (no cancellation); the
+    Newtonian limit is k2 = (2 - y) / (2 (y + 3)).
+    """
+    C = np.asarray(compactness, dtype=float)
+    yv = np.asarray(y_surface, dtype=float)
+    num = 1.6 * (1 - 2 * C) ** 2 * (2 + 2 * C * (yv - 1) - yv)  # / C^5 cancelled with D
+    powers = C[..., None] ** np.arange(_D_SERIES.shape[0])
+    d_series = (powers * (_D_SERIES[:, 0] + _D_SERIES[:, 1] * yv[..., None])).sum(axis=-1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        d_closed = (
+            2 * C * (6 - 3 * yv + 3 * C * (5 * yv - 8))
+            + 4 * C**3 * (13 - 11 * yv + C * (3 * yv - 2) + 2 * C**2 * (1 + yv))
+            + 3 * (1 - 2 * C) ** 2 * (2 - yv + 2 * C * (yv - 1)) * np.log1p(-2 * C)
+        ) / C**5
+    return num / np.where(C < 0.15, d_series, d_closed)
+
+
+def eos_nodes(eos: EquationOfState, control: StepControl, h_top: float, rho_floor: float):
+    """Star-independent step edges of one EOS below ``h_top``.
+
+    Returns two ascending arrays of log-enthalpies:
+
+    * ``always``: the EOS breakpoints and nodes every ``enthalpy_step`` in h;
+    * ``density``: a lattice ln(rho / 1 g cm^-3) = k ``density_step`` (k
+      integer) from ``rho_floor`` (g/cm^3) up.  A star uses the lattice nodes
+      above its own envelope density, so every star sees the same nodes
+      whatever else is in its batch.
+
+    A node closer than a third of its local spacing to a breakpoint is
+    dropped, so table knots do not double the step count.
     """
     breaks = eos.breakpoints_h[eos.breakpoints_h < h_top]
     h_nodes = np.arange(1, int(h_top / control.enthalpy_step) + 1) * control.enthalpy_step
-    parts = [h_nodes]
+    density = np.empty(0)
     _, _, rho_top = eos.state(np.array([h_top]))
-    rho_env = units.density_to_geometric(control.envelope_density)
-    if np.isfinite(rho_top[0]) and rho_top[0] > rho_env:
-        ln_rho = np.arange(np.log(rho_env), np.log(rho_top[0]), control.density_step)
+    rho_top_cgs = units.density_from_geometric(rho_top[0])
+    if np.isfinite(rho_top_cgs) and rho_top_cgs > rho_floor:
+        k = np.arange(np.floor(np.log(rho_floor) / control.density_step),
+                      np.ceil(np.log(rho_top_cgs) / control.density_step) + 1)
         try:
-            parts.append(eos.enthalpy_of_density(np.exp(ln_rho)))
+            density = eos.enthalpy_of_density(units.density_to_geometric(np.exp(k * control.density_step)))
         except InputError:  # no density axis (incompressible): h-steps only
-            pass
-    nodes = np.concatenate(parts)
-    nodes = nodes[(nodes > 0) & (nodes < h_top)]
-    if breaks.size and nodes.size:
-        # distance to the nearest breakpoint, compared with the local spacing
+            density = np.empty(0)
+
+    def thin(nodes):
+        nodes = nodes[(nodes > 0) & (nodes < h_top)]
+        if not (breaks.size and nodes.size):
+            return nodes
         j = np.clip(np.searchsorted(breaks, nodes), 1, breaks.size) - 1
         near = np.minimum(np.abs(nodes - breaks[j]),
                           np.abs(nodes - breaks[np.minimum(j + 1, breaks.size - 1)]))
-        # local spacing from the EOS at the node itself, so the node set below
-        # any h is the same whatever h_top is (batch-independent results)
+        # local spacing from the EOS at the node itself (batch-independent)
         with np.errstate(divide="ignore", invalid="ignore"):
             cs2 = np.nan_to_num(eos.sound_speed_squared(nodes), nan=np.inf)
         spacing = np.minimum(control.enthalpy_step, control.density_step * cs2)
-        nodes = nodes[near > spacing / 3.0]
-    return np.unique(np.concatenate([nodes, breaks]))
+        return nodes[near > spacing / 3.0]
+
+    return np.unique(np.concatenate([thin(h_nodes), breaks])), np.unique(thin(density))
 
 
 def step_grid(
-    nodes: np.ndarray,
+    always: np.ndarray,
+    density: np.ndarray,
     central_enthalpy: np.ndarray,
     start_offset: np.ndarray,
     startup_end: np.ndarray,
+    envelope_enthalpy: np.ndarray,
     growth: float,
 ) -> np.ndarray:
     """Per-star step edges: a geometric start-up, then the EOS nodes.
 
     Parameters
     ----------
-    nodes : ndarray, shape (G,)
+    always, density : ndarray
         Star-independent edges from :func:`eos_nodes`, ascending.
-    central_enthalpy, start_offset, startup_end : ndarray, shape (n,)
-        h_c, the series hand-over distance x_0 and the distance from the
-        centre where the geometric start-up ends.
+    central_enthalpy, start_offset, startup_end, envelope_enthalpy : ndarray, shape (n,)
+        h_c, the series hand-over distance x_0, the distance from the centre
+        where the geometric start-up ends, and the h below which a star
+        uses no density nodes.
     growth : float
         Ratio of each start-up step to its distance from the centre.
 
@@ -296,10 +440,15 @@ def step_grid(
     n_geo = np.ceil(np.log(startup_end / start_offset) / np.log1p(growth)).astype(np.intp)
     k = np.arange(int(n_geo.max(initial=0)) + 1)[:, None]
     x = np.minimum(start_offset[None, :] * (1.0 + growth) ** k, startup_end[None, :])
-    below = nodes[:, None] < (h_c - startup_end)[None, :]
-    h = np.concatenate(
-        [h_c[None, :] - x, np.where(below, nodes[:, None], 0.0), np.zeros((1, h_c.size))]
-    )
+    top = (h_c - startup_end)[None, :]
+    use_always = always[:, None] < top
+    use_density = (density[:, None] < top) & (density[:, None] > envelope_enthalpy[None, :])
+    h = np.concatenate([
+        h_c[None, :] - x,
+        np.where(use_always, always[:, None], 0.0),
+        np.where(use_density, density[:, None], 0.0),
+        np.zeros((1, h_c.size)),
+    ])
     return -np.sort(-h, axis=0)
 
 
@@ -308,6 +457,7 @@ def solve_interiors(
     central_enthalpy,
     *,
     control: StepControl = DEFAULT_STEPS,
+    response: bool = True,
 ) -> StarInteriors:
     """Integrate the TOV equations for a batch of central log-enthalpies.
 
@@ -319,6 +469,9 @@ def solve_interiors(
         Central log-enthalpies, each in (0, ``eos.h_max``].
     control : StepControl, optional
         Step placement and scheme (the accuracy knobs).
+    response : bool, optional
+        Also integrate the tidal (k2, Lambda) and slow-rotation (I)
+        equations as three more components of the same state.
 
     Returns
     -------
@@ -332,18 +485,29 @@ def solve_interiors(
     x0 = control.start_offset * h_c
     deps_dh = eos.energy_density_slope(h_c)
     y = central_series(p_c, eps_c, rho_c, deps_dh, x0)
+    if response:
+        y = np.concatenate([y, response_series(p_c, eps_c, deps_dh, h_c, x0)])
     # the start-up ends where its steps reach the local EOS node spacing
     with np.errstate(divide="ignore"):
         density_scale = control.density_step * (eps_c + p_c) / deps_dh  # = step * c_s^2
     local = np.minimum(control.enthalpy_step, density_scale)
     startup_end = np.clip(local / control.startup_growth, x0, h_c - x0)
-    nodes = eos_nodes(eos, control, float(h_c.max()))
-    edges = step_grid(nodes, h_c, x0, startup_end, control.startup_growth)
+    # each star's envelope: below min(envelope_density, ENVELOPE_FRACTION rho_c) only h-steps
+    rho_c_cgs = units.density_from_geometric(rho_c)
+    rho_env = np.minimum(control.envelope_density, ENVELOPE_FRACTION * rho_c_cgs)
+    try:
+        h_env = eos.enthalpy_of_density(units.density_to_geometric(rho_env))
+    except InputError:  # incompressible: no density axis
+        h_env = np.zeros_like(h_c)
+    always, density = eos_nodes(eos, control, float(h_c.max()), float(rho_env.min()))
+    edges = step_grid(always, density, h_c, x0, startup_end, h_env, control.startup_growth)
     h_from, h_to = edges[:-1], edges[1:]
     piece = eos.piece_index(0.5 * (h_from + h_to))
 
+    h_guard = SURFACE_GUARD * h_c
     coeff_tables = eos.piece_arrays()
     evaluate = eos.state_from_coefficients
+    slope = eos.slope_from_coefficients
     tableau = control.tableau
     c, a, b = tableau.c, tableau.a, tableau.b
     stages = len(b)
@@ -358,22 +522,42 @@ def solve_interiors(
             for j in range(i):
                 if a[i, j] != 0.0:
                     yi = yi + (a[i, j] * dh) * k[j]
-            hi = h0 + c[i] * dh
-            k.append(structure_rhs(yi, *evaluate(hi, coeff)))
+            hi = np.maximum(h0 + c[i] * dh, h_guard)
+            p, e, r = evaluate(hi, coeff)
+            if response:
+                k.append(response_rhs(hi, yi, p, e, r, slope(p, e, coeff)))
+            else:
+                k.append(structure_rhs(yi, p, e, r))
         incr = b[0] * k[0]
         for i in range(1, stages):
             if b[i] != 0.0:
                 incr = incr + b[i] * k[i]
         y = y + dh * incr
 
-    u, v, w = y
-    r3 = u * np.sqrt(u)
-    return StarInteriors(
+    u, v, w = y[:3]
+    radius = np.sqrt(u)
+    r3 = u * radius
+    mass = v * r3
+    out = StarInteriors(
         central_enthalpy=h_c,
         central_pressure=p_c,
         central_energy_density=eps_c,
         central_density=rho_c,
-        radius=np.sqrt(u),
-        mass=v * r3,
+        radius=radius,
+        mass=mass,
         baryon_mass=w * r3,
     )
+    if response:
+        compactness = mass / radius
+        # energy-density jump at the surface: y drops by 4 pi R^3 eps(R-) / M
+        # (Damour & Nagar 2009, PRD 80, 084035; Postnikov et al. 2010, eq. 14)
+        y_surface = y[3] - FOUR_PI * r3 * eos.surface_energy_density / mass
+        k2 = love_number_k2(compactness, y_surface)
+        out.love_number_k2 = k2
+        out.tidal_deformability = (2.0 / 3.0) * k2 / compactness**5
+        # exterior frame dragging: omega = Omega - 2J/r^3, J = phi(R)/6 with
+        # phi = C r^5 psi and C = 1/sqrt(1 - 2M/R) making j(R) = 1
+        omega_r, psi_r = y[4], y[5]
+        J = radius**5 * psi_r / np.sqrt(1.0 - 2.0 * compactness) / 6.0
+        out.moment_of_inertia = J / (omega_r + 2.0 * J / r3)
+    return out

@@ -20,8 +20,8 @@ from .config import SweepConfig, load_config
 from .eos import EquationOfState
 from .errors import ConfigError, InputError
 from .exterior import match_surface
-from .runfile import STAR_DATASETS, RunFileWriter
-from .sequence import EOSSequence, analyse_sequence
+from .runfile import STAR_DATASETS, TARGET_DATASETS, RunFileWriter
+from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 
 __all__ = ["central_enthalpy", "solve_stars", "sweep_eos", "run_config", "MemorySink"]
@@ -104,6 +104,10 @@ def _columns_from_interiors(eos: EquationOfState, interiors) -> dict[str, np.nda
         "compactness": match.compactness,
         "surface_redshift": match.surface_redshift,
         "surface_gravity": match.surface_gravity,
+        "love_number_k2": interiors.love_number_k2,
+        "tidal_deformability": interiors.tidal_deformability,
+        "moment_of_inertia": interiors.moment_of_inertia * units.MOMENT_OF_INERTIA_GEOM_TO_CGS,
+        "binding_energy": units.mass_from_geometric(interiors.baryon_mass - interiors.mass),
     }
 
 
@@ -149,6 +153,8 @@ def sweep_eos(
     chunk_size: int = 2048,
     sink: Sink | None = None,
     progress: ProgressFn | None = None,
+    target_masses=(),
+    binaries=(),
 ) -> EOSSequence | None:
     """Solve, match and analyse one EOS over a sweep of central values.
 
@@ -167,6 +173,12 @@ def sweep_eos(
         Where results go; default in memory.
     progress : callable, optional
         Called with the number of stars finished after every chunk.
+    target_masses : sequence of float, optional
+        Masses (Msun) at which to solve stable-branch stars exactly; stored
+        in the ``targets`` subgroup.
+    binaries : sequence of (m1, m2), optional
+        Component masses (Msun) for which to compute chirp mass and
+        Lambda-tilde; stored in the ``binaries`` subgroup.
 
     Returns
     -------
@@ -178,11 +190,12 @@ def sweep_eos(
     h_all = central_enthalpy(eos, quantity, values)
     per_star = {k: v for k, v in STAR_DATASETS.items()}
     sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, per_star)
-    mass = np.empty(h_all.size)
+    kept = {k: np.empty(h_all.size) for k in ("mass", "central_density", "central_pressure")}
     for start in range(0, h_all.size, chunk_size):
         h = h_all[start : start + chunk_size]
         cols = _columns_from_interiors(eos, solve_interiors(eos, h, control=control))
-        mass[start : start + h.size] = cols["mass"]
+        for k, arr in kept.items():
+            arr[start : start + h.size] = cols[k]
         sink.append(eos.name, cols)
         if progress is not None:
             progress(h.size)
@@ -191,7 +204,7 @@ def sweep_eos(
         r = solve_interiors(eos, hc, control=control)
         return r.mass, r.radius
 
-    analysis = analyse_sequence(h_all, units.mass_to_geometric(mass), refine)
+    analysis = analyse_sequence(h_all, units.mass_to_geometric(kept["mass"]), refine)
     h_top = analysis.max_enthalpy if np.isfinite(analysis.max_enthalpy) else float(h_all.max())
     cs2 = eos.max_sound_speed_squared(h_top)
     if np.isfinite(analysis.max_enthalpy):
@@ -207,8 +220,52 @@ def sweep_eos(
         "max_mass_central_density": rho_max_cgs,
         "max_mass_status": analysis.status,
     }
-    sink.finish_eos(eos.name, {"stable": analysis.stable}, summary)
+    groups = {}
+    if len(target_masses) or len(binaries):
+        light = EOSSequence(eos.name, eos.kind, eos.parameters, dict(kept, stable=analysis.stable), summary)
+        if len(target_masses):
+            groups["targets"] = _targets_group(eos, light, target_masses, control)
+        if len(binaries):
+            groups["binaries"] = _binaries_group(eos, light, binaries, control)
+    sink.finish_eos(eos.name, {"stable": analysis.stable}, summary, groups)
     return sink.sequence(eos.name) if memory else None
+
+
+def _why_missing(seq: EOSSequence, mass: float) -> str:
+    m_max = seq.summary.get("max_mass", np.nan)
+    if np.isfinite(m_max) and mass > m_max:
+        return f"above the maximum mass {m_max:.4f} Msun"
+    stable_m = np.asarray(seq["mass"])[seq.stable]
+    if stable_m.size and mass < stable_m.min():
+        return f"below the lightest stable star of the sweep ({stable_m.min():.4f} Msun)"
+    return "not reached by the stable branch of the sweep"
+
+
+def _targets_group(eos, seq: EOSSequence, masses, control) -> dict:
+    masses = np.asarray(masses, dtype=float)
+    stars = stars_at_masses(eos, seq, masses, control=control)
+    status = ["found" if np.isfinite(m) else _why_missing(seq, t)
+              for t, m in zip(masses, stars["mass"], strict=True)]
+    data = {"requested_mass": (masses, "Msun")}
+    for k, unit in TARGET_DATASETS.items():
+        if k != "requested_mass":
+            data[k] = (stars[k], unit)
+    return {"attrs": {"status": status}, "data": data}
+
+
+def _binaries_group(eos, seq: EOSSequence, pairs, control) -> dict:
+    pairs = np.asarray(pairs, dtype=float).reshape(-1, 2)
+    unique = np.unique(pairs)
+    stars = stars_at_masses(eos, seq, unique, control=control)
+    lam = dict(zip(unique, stars["tidal_deformability"], strict=True))
+    l1 = np.array([lam[m] for m in pairs[:, 0]])
+    l2 = np.array([lam[m] for m in pairs[:, 1]])
+    return {"attrs": {}, "data": {
+        "mass_1": (pairs[:, 0], "Msun"),
+        "mass_2": (pairs[:, 1], "Msun"),
+        "chirp_mass": (chirp_mass(pairs[:, 0], pairs[:, 1]), "Msun"),
+        "lambda_tilde": (lambda_tilde(pairs[:, 0], pairs[:, 1], l1, l2), "1"),
+    }}
 
 
 def _build_all(config: SweepConfig) -> list[EquationOfState]:
@@ -267,7 +324,8 @@ def run_config(
     try:
         for eos in built:
             sweep_eos(eos, config.axis.quantity, config.axis.values, control=control,
-                      chunk_size=config.solver.chunk_size, sink=writer, progress=progress)
+                      chunk_size=config.solver.chunk_size, sink=writer, progress=progress,
+                      target_masses=config.target_masses, binaries=config.binaries)
     except BaseException:
         writer.abort()
         raise

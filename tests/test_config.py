@@ -142,7 +142,6 @@ def test_missing_table_file_names_the_table(tmp_path, run_cli):
     assert f"{tmp_path / 'no_such_table.csv'}: table file not found" in assert_one_error_line(err)
 
 
-@pytest.mark.xfail(strict=True, reason="eos.read_piecewise_polytrope: 10.0**log10_p1 raises OverflowError")
 def test_overflowing_log10_p1(tmp_path, run_cli):
     cfg = tmp_path / "bad.toml"
     cfg.write_text(SMALL_DENSITY_AXIS + SLY_BLOCK.replace("34.384", "400.0"))

@@ -1,0 +1,251 @@
+"""HDF5 run files: the full schema, atomic writing, refusal to overwrite, reading back."""
+
+from __future__ import annotations
+
+import datetime as dt
+import hashlib
+import json
+
+import h5py
+import numpy as np
+import pytest
+from conftest import EOS_TABLES, SLY_BLOCK
+
+import stellar_match
+from stellar_match import sweep
+from stellar_match.config import load_config
+from stellar_match.errors import RunFileError
+from stellar_match.runfile import STAR_DATASETS, read_run
+
+SOFT_TABLE = EOS_TABLES / "hdm_soft.csv"
+N_STARS = 20
+CONFIG_TEXT = f"""\
+# a tiny sweep for the run-file tests
+[sweep]
+central_density = {{ min = 3e14, max = 3e15, count = {N_STARS} }}
+
+{SLY_BLOCK}
+[[eos]]
+name = "soft"
+kind = "table"
+path = "{SOFT_TABLE}"
+[eos.columns]
+pressure = {{ column = "P", unit = "dyn/cm2" }}
+energy_density = {{ column = "eps", unit = "erg/cm3" }}
+rest_mass_density = {{ column = "rho", unit = "g/cm3" }}
+"""
+
+#: The units the spec (issue) requires for every per-star dataset.
+SPEC_UNITS = {
+    "central_density": "g/cm3",
+    "central_energy_density": "g/cm3",
+    "central_pressure": "dyn/cm2",
+    "mass": "Msun",
+    "radius": "km",
+    "baryon_mass": "Msun",
+    "compactness": "1",
+    "surface_redshift": "1",
+    "surface_gravity": "cm/s2",
+    # issue #3 additions
+    "love_number_k2": "1",
+    "tidal_deformability": "1",
+    "moment_of_inertia": "g cm2",
+    "binding_energy": "Msun",
+}
+SPEC_GROUP_ATTRIBUTES = ("kind", "parameters", "causal", "max_mass", "max_mass_radius", "max_mass_central_density")
+
+
+def write_config(folder, text=CONFIG_TEXT, name="tiny.toml"):
+    path = folder / name
+    path.write_text(text)
+    return path
+
+
+@pytest.fixture(scope="module")
+def tiny_run(tmp_path_factory):
+    """(config path, run file) of one tiny sweep, shared by the read-only tests."""
+    folder = tmp_path_factory.mktemp("run")
+    cfg = write_config(folder)
+    return cfg, sweep.run_config(cfg, folder / "tiny.h5")
+
+
+def test_root_attributes(tiny_run):
+    cfg, path = tiny_run
+    with h5py.File(path, "r") as f:
+        a = f.attrs
+        assert a["format"] == "stellar_match.run"
+        assert a["format_version"] == 1
+        assert a["software_version"] == stellar_match.__version__
+        assert a["config_toml"] == cfg.read_text()
+        created = dt.datetime.fromisoformat(a["created_utc"])
+        assert created.utcoffset() == dt.timedelta(0)
+        assert abs(dt.datetime.now(dt.UTC) - created) < dt.timedelta(minutes=10)
+        assert list(f["eos"]) == ["sly", "soft"]  # config order
+
+
+def test_eos_group_attributes(tiny_run):
+    _, path = tiny_run
+    with h5py.File(path, "r") as f:
+        for name, kind in (("sly", "piecewise_polytrope"), ("soft", "table")):
+            g = f["eos"][name]
+            for attr in SPEC_GROUP_ATTRIBUTES:
+                assert attr in g.attrs, (name, attr)
+            assert g.attrs["kind"] == kind
+            assert isinstance(json.loads(g.attrs["parameters"]), dict)
+            assert isinstance(g.attrs["causal"], np.bool_ | bool)
+            mass, stable = g["mass"][()], g["stable"][()]
+            # the maximum is refined between samples, so it is at least the largest sample
+            assert g.attrs["max_mass"] >= mass[stable].max() - 1e-9
+            assert g.attrs["max_mass"] <= mass.max() * 1.01
+            assert 8.0 < g.attrs["max_mass_radius"] < 14.0
+            assert 3e14 < g.attrs["max_mass_central_density"] < 3e15
+        params = json.loads(f["eos"]["sly"].attrs["parameters"])
+        assert params["log10_p1"] == 34.384 and params["gammas"] == [3.005, 2.988, 2.851]
+        assert "table_sha256" not in f["eos"]["sly"].attrs
+        assert f["eos"]["soft"].attrs["table_sha256"] == hashlib.sha256(SOFT_TABLE.read_bytes()).hexdigest()
+
+
+def test_sly_maximum_mass(tiny_run):
+    # Read, Lackey, Owen & Friedman 2009, PRD 79, 124032, Table III: the SLy fit
+    # (34.384, 3.005, 2.988, 2.851) has M_max = 2.049 Msun; 0.5% covers the fit's
+    # own rounding and the 20-star sampling.
+    _, path = tiny_run
+    with h5py.File(path, "r") as f:
+        assert f["eos"]["sly"].attrs["max_mass"] == pytest.approx(2.049, rel=5e-3)
+        assert bool(f["eos"]["sly"].attrs["causal"])
+
+
+def test_datasets_and_units(tiny_run):
+    _, path = tiny_run
+    with h5py.File(path, "r") as f:
+        for name in ("sly", "soft"):
+            g = f["eos"][name]
+            datasets = {k for k, v in g.items() if isinstance(v, h5py.Dataset)}
+            assert datasets == set(SPEC_UNITS) | {"stable"}
+            for col, unit in SPEC_UNITS.items():
+                d = g[col]
+                assert d.ndim == 1 and d.shape[0] == N_STARS, col
+                assert d.dtype.kind == "f", col
+                assert d.attrs["unit"] == unit, col
+                assert np.all(np.isfinite(d[()])), col
+            stable = g["stable"]
+            assert stable.shape == (N_STARS,)
+            assert stable.dtype == np.bool_
+            assert "unit" in stable.attrs
+            values = stable[()]
+            assert values.any() and not values.all()  # the sweep passes the maximum
+            np.testing.assert_allclose(g["central_density"][()], np.geomspace(3e14, 3e15, N_STARS), rtol=1e-10)
+
+
+def test_read_run_matches_in_memory_sweep(tiny_run):
+    cfg, path = tiny_run
+    run = read_run(path)
+    assert run.attrs["format"] == "stellar_match.run"
+    config = load_config(cfg)
+    assert list(run.eos) == [s.name for s in config.eos]
+    for spec in config.eos:
+        memory = sweep.sweep_eos(spec.build(), config.axis.quantity, config.axis.values,
+                                 chunk_size=config.solver.chunk_size)
+        disk = run.eos[spec.name]
+        assert list(disk.columns) == list(STAR_DATASETS) == list(memory.columns)
+        for col in STAR_DATASETS:
+            np.testing.assert_array_equal(disk[col], memory[col], err_msg=col)
+        assert disk.stable.dtype == np.bool_
+        assert disk.kind == memory.kind
+        assert disk.parameters == json.loads(json.dumps(memory.parameters, default=str))
+        assert disk.table_sha256 == memory.table_sha256
+        assert disk.summary.keys() == memory.summary.keys()
+        for k, v in memory.summary.items():
+            assert disk.summary[k] == (pytest.approx(v, nan_ok=True) if isinstance(v, float) else v), k
+
+
+def test_existing_file_is_not_overwritten_without_force(tmp_path):
+    cfg = write_config(tmp_path, CONFIG_TEXT.replace(f"count = {N_STARS}", "count = 3"))
+    out = tmp_path / "run.h5"
+    out.write_bytes(b"precious")
+    with pytest.raises(RunFileError) as info:
+        sweep.run_config(cfg, out)
+    assert str(out) in info.value.one_line() and "--force" in info.value.message
+    assert out.read_bytes() == b"precious"
+    assert not (tmp_path / "run.h5.partial").exists()
+    sweep.run_config(cfg, out, force=True)
+    assert read_run(out).eos["sly"]["mass"].size == 3
+    assert not (tmp_path / "run.h5.partial").exists()
+
+
+def test_interrupted_sweep_leaves_only_the_partial_file(tmp_path, monkeypatch):
+    cfg = write_config(tmp_path, CONFIG_TEXT.replace("[[eos]]", "[solver]\nchunk_size = 5\n\n[[eos]]", 1))
+    out = tmp_path / "run.h5"
+    real = sweep.solve_interiors
+    calls = []
+
+    def fail_after_first_chunk(*args, **kwargs):
+        calls.append(1)
+        if len(calls) > 1:
+            raise RuntimeError("simulated crash")
+        return real(*args, **kwargs)
+
+    monkeypatch.setattr(sweep, "solve_interiors", fail_after_first_chunk)
+    with pytest.raises(RuntimeError, match="simulated crash"):
+        sweep.run_config(cfg, out)
+    assert not out.exists()
+    partial = tmp_path / "run.h5.partial"
+    assert partial.exists()
+    with h5py.File(partial, "r") as f:  # closed cleanly, holding the finished chunk
+        assert f["eos"]["sly"]["mass"].shape == (5,)
+    with pytest.raises(RunFileError, match="unfinished run.h5.partial"):
+        read_run(out)
+
+
+def test_read_run_rejects_a_non_hdf5_file(tmp_path):
+    path = tmp_path / "notes.h5"
+    path.write_text("not HDF5\n")
+    with pytest.raises(RunFileError) as info:
+        read_run(path)
+    assert info.value.source == str(path)
+
+
+def test_read_run_rejects_hdf5_without_format(tmp_path):
+    path = tmp_path / "foreign.h5"
+    with h5py.File(path, "w") as f:
+        f.create_group("eos")
+        f.attrs["software_version"] = "1.0"
+    with pytest.raises(RunFileError) as info:
+        read_run(path)
+    assert info.value.source == str(path) and "format" in info.value.message
+
+
+def test_read_run_rejects_a_newer_format_version(tiny_run, tmp_path):
+    path = tmp_path / "future.h5"
+    path.write_bytes(tiny_run[1].read_bytes())
+    with h5py.File(path, "a") as f:
+        f.attrs["format_version"] = 2
+    with pytest.raises(RunFileError, match="format_version 2"):
+        read_run(path)
+
+
+def test_read_run_missing_file(tmp_path):
+    with pytest.raises(RunFileError, match="not found"):
+        read_run(tmp_path / "absent.h5")
+
+
+def test_read_run_rejects_a_run_file_without_eos_group(tmp_path):
+    path = tmp_path / "empty.h5"
+    with h5py.File(path, "w") as f:
+        f.attrs["format"] = "stellar_match.run"
+        f.attrs["format_version"] = 1
+    with pytest.raises(RunFileError, match="no /eos group"):
+        read_run(path)
+
+
+def test_output_path_that_is_a_folder_fails_before_solving(tmp_path, monkeypatch):
+    cfg = write_config(tmp_path)
+    (tmp_path / "out.h5").mkdir()
+
+    def must_not_solve(*args, **kwargs):
+        raise AssertionError("solved stars for an output that cannot be written")
+
+    monkeypatch.setattr(sweep, "solve_interiors", must_not_solve)
+    with pytest.raises(RunFileError, match="is a folder"):
+        sweep.run_config(cfg, tmp_path / "out.h5", force=True)
+    assert not (tmp_path / "out.h5.partial").exists()
