@@ -249,6 +249,14 @@ class PiecewisePolytrope(EquationOfState):
         p, eps, _ = self.state_from_coefficients(h, coeff)
         return self.slope_from_coefficients(p, eps, coeff)
 
+    def sound_speed_squared(self, h):
+        h = np.asarray(h, dtype=float)
+        idx = self.piece_index(h)
+        coeff = {k: v[idx] for k, v in self._coeff.items()}
+        p, eps, _ = self.state_from_coefficients(h, coeff)
+        total = eps + p
+        return np.where(total > 0, coeff["gamma"] * p / np.where(total > 0, total, 1.0), 0.0)
+
     def enthalpy_of_density(self, rho):
         rho = np.asarray(rho, dtype=float)
         i = np.searchsorted(self.lower_densities, rho, side="right") - 1

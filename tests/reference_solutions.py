@@ -71,3 +71,66 @@ def tov_in_radius(eos, h_c: float, rtol: float = 1e-11):
     R = sol.t_events[0][0]
     _, M, Mb = sol.y_events[0][0]
     return float(R), float(M), float(Mb)
+
+
+def hinderer_k2(C: float, y: float) -> float:
+    """Closed form of k2, Hinderer (2008, ApJ 677, 1216, erratum 2009), eq. 23."""
+    num = 8 / 5 * C**5 * (1 - 2 * C) ** 2 * (2 + 2 * C * (y - 1) - y)
+    den = (2 * C * (6 - 3 * y + 3 * C * (5 * y - 8))
+           + 4 * C**3 * (13 - 11 * y + C * (3 * y - 2) + 2 * C**2 * (1 + y))
+           + 3 * (1 - 2 * C) ** 2 * (2 - y + 2 * C * (y - 1)) * np.log(1 - 2 * C))
+    return num / den
+
+
+def tidal_and_inertia_in_radius(eos, h_c: float, rtol: float = 1e-11):
+    """(R, M, k2, Lambda, I) in km / km^3, all in the r-form, by solve_ivp DOP853.
+
+    State (p, m, nu, y, omega, varpi) with
+    * y: r y' + y^2 + y e^lambda [1 + 4 pi r^2 (p - eps)] + r^2 Q = 0,
+      Q = 4 pi e^lambda (5 eps + 9 p + (eps + p)/c_s^2) - 6 e^lambda / r^2 - nu'^2
+      (Hinderer 2008; Postnikov, Prakash & Lattimer 2010, PRD 82, 024016, eq. 13);
+    * omega, varpi = r^4 j omega', j = e^-(nu + lambda)/2 (Hartle 1967, ApJ 150, 1005, eq. 43):
+      varpi' = 16 pi r^4 (eps + p) e^lambda j omega; I = J / Omega with J = R^4 omega'(R)/6,
+      Omega = omega(R) + 2 J / R^3.
+    The y jump -4 pi R^3 eps(R-)/M at a surface density jump follows Damour & Nagar 2009.
+    """
+    p_c, e_c, rho_c = _state(eos, h_c)
+
+    def eos_at(p):
+        h = float(eos.enthalpy_of_pressure(np.array([max(p, 0.0)]))[0])
+        _, e, _ = _state(eos, h)
+        cs2 = float(np.asarray(eos.sound_speed_squared(np.array([max(h, 1e-300)])))[0])
+        return e, cs2
+
+    def rhs(r, s):
+        p, m, nu, y, om, vp = s
+        pp = max(p, 0.0)
+        e, cs2 = eos_at(pp)
+        elam = 1 / (1 - 2 * m / r)
+        dnu = 2 * (m + 4 * np.pi * r**3 * pp) / (r * (r - 2 * m))
+        dp = -(e + pp) * dnu / 2
+        inv_cs2 = 0.0 if not np.isfinite(cs2) or cs2 == np.inf else (e + pp) / cs2
+        Q = 4 * np.pi * elam * (5 * e + 9 * pp + inv_cs2) - 6 * elam / r**2 - dnu**2
+        dy = -(y * y + y * elam * (1 + 4 * np.pi * r * r * (pp - e)) + r * r * Q) / r
+        j = np.exp(-nu / 2) * np.sqrt(1 - 2 * m / r)
+        return [dp, 4 * np.pi * r * r * e, dnu, dy, vp / (r**4 * j), 16 * np.pi * r**4 * (e + pp) * elam * j * om]
+
+    def surface(r, s):
+        return s[0]
+
+    surface.terminal = True
+    surface.direction = -1
+    r0 = 1e-5
+    s0 = [p_c - 2 * np.pi / 3 * (e_c + p_c) * (e_c + 3 * p_c) * r0**2, 4 * np.pi / 3 * e_c * r0**3, 0.0, 2.0,
+          1.0, 16 * np.pi / 5 * (e_c + p_c) * r0**5]
+    sol = solve_ivp(rhs, (r0, 1e4), s0, method="DOP853", rtol=rtol, atol=[p_c * 1e-28, 1e-30, 1e-30, 1e-30,
+                    1e-30, 1e-40], events=surface)
+    R = sol.t_events[0][0]
+    p, M, nu, y, om, vp = sol.y_events[0][0]
+    C = M / R
+    y -= 4 * np.pi * R**3 * eos.surface_energy_density / M
+    k2 = hinderer_k2(C, y)
+    j_R = np.exp(-nu / 2) * np.sqrt(1 - 2 * C)
+    J = vp / j_R / 6  # omega' = varpi/(R^4 j); J = R^4 omega'(R)/6 with the true j(R) = 1
+    I = J / (om + 2 * J / R**3)
+    return R, M, k2, 2 / 3 * k2 / C**5, I
