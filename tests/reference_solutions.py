@@ -109,7 +109,8 @@ def tidal_and_inertia_in_radius(eos, h_c: float, rtol: float = 1e-11):
         elam = 1 / (1 - 2 * m / r)
         dnu = 2 * (m + 4 * np.pi * r**3 * pp) / (r * (r - 2 * m))
         dp = -(e + pp) * dnu / 2
-        inv_cs2 = 0.0 if not np.isfinite(cs2) or cs2 == np.inf else (e + pp) / cs2
+        # (eps + p)/c_s^2 -> 0 at p = 0 for a surface piece with Gamma < 2, and 0 for c_s = inf
+        inv_cs2 = 0.0 if (not np.isfinite(cs2) or cs2 == 0.0) else (e + pp) / cs2
         Q = 4 * np.pi * elam * (5 * e + 9 * pp + inv_cs2) - 6 * elam / r**2 - dnu**2
         dy = -(y * y + y * elam * (1 + 4 * np.pi * r * r * (pp - e)) + r * r * Q) / r
         j = np.exp(-nu / 2) * np.sqrt(1 - 2 * m / r)
