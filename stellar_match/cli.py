@@ -33,21 +33,40 @@ def _fmt(x: float, spec: str) -> str:
     return format(x, spec) if np.isfinite(x) else "-"
 
 
+def _at_1_4(seq, column: str) -> tuple[float, bool]:
+    """Value at 1.4 Msun: the exact target solve when the run has one, else interpolated."""
+    t = (seq.groups or {}).get("targets")
+    if t is not None and column in t:
+        hit = np.flatnonzero(np.isclose(np.asarray(t["requested_mass"]), 1.4, rtol=0, atol=1e-12))
+        if hit.size:
+            return float(np.asarray(t[column])[hit[0]]), True
+    if column not in seq.columns:
+        return float("nan"), True
+    return interpolate_on_stable_branch(seq, 1.4, column), False
+
+
 def summary_table(run) -> str:
     """Plain-text table: one row per EOS of a run file."""
-    head = ("EOS", "kind", "M_max", "R(M_max)", "rho_c(M_max)", "R(1.4)", "z(1.4)", "causal")
-    units_row = ("", "", "[Msun]", "[km]", "[g/cm3]", "[km]", "[1]", "")
+    head = ("EOS", "kind", "M_max", "R(M_max)", "rho_c(M_max)", "R(1.4)", "z(1.4)", "Lambda(1.4)",
+            "I(1.4)", "causal")
+    units_row = ("", "", "[Msun]", "[km]", "[g/cm3]", "[km]", "[1]", "[1]", "[1e45 g cm2]", "")
     rows = []
+    interpolated = False
     for name, seq in run.eos.items():
         s = seq.summary
+        at = {c: _at_1_4(seq, c) for c in ("radius", "surface_redshift", "tidal_deformability",
+                                            "moment_of_inertia")}
+        interpolated |= any(np.isfinite(v) and not exact for v, exact in at.values())
         rows.append((
             name,
             seq.kind,
             _fmt(s.get("max_mass", np.nan), ".4f"),
             _fmt(s.get("max_mass_radius", np.nan), ".3f"),
             _fmt(s.get("max_mass_central_density", np.nan), ".3e"),
-            _fmt(interpolate_on_stable_branch(seq, 1.4, "radius"), ".3f"),
-            _fmt(interpolate_on_stable_branch(seq, 1.4, "surface_redshift"), ".4f"),
+            _fmt(at["radius"][0], ".3f"),
+            _fmt(at["surface_redshift"][0], ".4f"),
+            _fmt(at["tidal_deformability"][0], ".1f"),
+            _fmt(at["moment_of_inertia"][0] / 1e45, ".4f"),
             "yes" if s.get("causal") else "NO",
         ))
     widths = [max(len(r[i]) for r in (head, units_row, *rows)) for i in range(len(head))]
@@ -55,6 +74,9 @@ def summary_table(run) -> str:
              for r in (head, units_row, *rows)]
     notes = [f"  {n}: maximum {seq.summary['max_mass_status']}" for n, seq in run.eos.items()
              if not str(seq.summary.get("max_mass_status", "found")).startswith("found")]
+    if interpolated:
+        notes.append("  values at 1.4 Msun interpolated on the stable branch; add 1.4 to "
+                     "[sweep] target_masses for exact solves")
     return "\n".join(lines + notes)
 
 
@@ -65,12 +87,29 @@ def _run_sweep(config_path: Path, out: Path | None, force: bool) -> Path:
     config = load_config(config_path)
     out = out if out is not None else config_path.with_suffix(".h5")
     total = config.axis.values.size * len(config.eos)
-    bar = _progress_bar(total, "sweep")
+    bar = _LazyBar(total, "sweep")
     try:
         path = run_config(config, out, force=force, progress=bar.update)
     finally:
         bar.close()
     return path
+
+
+class _LazyBar:
+    """A progress bar that appears with the first finished chunk, so that input
+    errors found while building the EOS print as one clean line."""
+
+    def __init__(self, total: int, desc: str) -> None:
+        self.total, self.desc, self.bar = total, desc, None
+
+    def update(self, n: int) -> None:
+        if self.bar is None:
+            self.bar = _progress_bar(self.total, self.desc)
+        self.bar.update(n)
+
+    def close(self) -> None:
+        if self.bar is not None:
+            self.bar.close()
 
 
 def cmd_sweep(args) -> int:
@@ -102,7 +141,77 @@ def cmd_demo(args) -> int:
     run_path = _run_sweep(demo_dir / "demo.toml", out_dir / "demo.h5", force=True)
     print(f"demo inputs: {demo_dir}")
     print(f"wrote {run_path}")
-    print(summary_table(read_run(run_path)))
+    run = read_run(run_path)
+    print(summary_table(run))
+    from .exports import redshift_table, select_sequences, write_table
+    from .plots import load_constraints, overlay_figure, save_figure
+
+    sequences = select_sequences([run])
+    figure = overlay_figure(sequences, load_constraints(demo_dir / "demo_constraints.toml"))
+    print(f"wrote {save_figure(figure, out_dir / 'demo_overlay.png')}")
+    table = redshift_table(sequences, meta={"software": f"{PROG} {__version__}", "source_run_file": str(run_path)})
+    print(f"wrote {write_table(table, out_dir / 'demo_redshift.ecsv')}")
+    return 0
+
+
+def _read_runs(paths: list[str]):
+    return [read_run(p) for p in paths]
+
+
+def cmd_overlay(args) -> int:
+    from .exports import check_output_path, select_sequences
+    from .plots import FIGURE_FORMATS, load_constraints, overlay_figure, save_figure
+
+    out = check_output_path(args.out, FIGURE_FORMATS)
+    constraints = load_constraints(args.constraints) if args.constraints else None
+    sequences = select_sequences(_read_runs(args.runs), args.eos)
+    save_figure(overlay_figure(sequences, constraints, panels=args.panels), out)
+    print(f"wrote {out}")
+    return 0
+
+
+def cmd_redshift(args) -> int:
+    from . import exports
+
+    meta = {"software": f"{PROG} {__version__}"}
+    grid = args.grid_mass is not None or args.grid_radius is not None
+    if grid:
+        if args.run is not None or args.masses or args.observed_z is not None:
+            raise InputError("--grid-mass/--grid-radius tabulate without a run file: give no RUN.h5, "
+                             "--masses or --observed-z with them")
+        if args.grid_mass is None or args.grid_radius is None:
+            raise InputError("the grid needs both --grid-mass and --grid-radius")
+        if args.out is None:
+            raise InputError("give -o OUT.csv|ecsv|h5 for the grid")
+        out = exports.check_output_path(args.out, exports.TABLE_FORMATS)
+        table = exports.redshift_grid(exports.parse_range(args.grid_mass, "--grid-mass"),
+                                      exports.parse_range(args.grid_radius, "--grid-radius"), meta=meta)
+        print(f"wrote {exports.write_table(table, out)} ({len(table)} rows)")
+        return 0
+    if args.run is None:
+        raise InputError("give a run file RUN.h5 (or --grid-mass and --grid-radius)")
+    if (args.observed_z is None) != (args.sigma is None):
+        raise InputError("--observed-z and --sigma go together")
+    out = exports.check_output_path(args.out, exports.TABLE_FORMATS) if args.out else None
+    if out is None and args.observed_z is None:
+        raise InputError("give -o OUT.csv|ecsv|h5")
+    masses = exports.parse_range(args.masses, "--masses") if args.masses else None
+    run = read_run(args.run)
+    sequences = exports.select_sequences([run], args.eos)
+    meta["source_run_file"] = str(run.path)
+    if args.observed_z is not None:
+        table = exports.redshift_window(sequences, args.observed_z, args.sigma, meta=meta)
+        print(table.meta["window"])
+        print(exports.format_text_table(table))
+    elif masses is not None:
+        table, notes = exports.redshift_table_at_masses(sequences, masses, control=exports.control_of_run(run),
+                                                        meta=meta)
+        for note in notes:
+            print(f"{PROG}: note: {note}", file=sys.stderr)
+    else:
+        table = exports.redshift_table(sequences, stable_only=args.stable_only, meta=meta)
+    if out is not None:
+        print(f"wrote {exports.write_table(table, out)} ({len(table)} rows)")
     return 0
 
 
@@ -128,6 +237,26 @@ def build_parser() -> argparse.ArgumentParser:
     s = sub.add_parser("demo", help="run the bundled demo (three invented candidate EOS)")
     s.add_argument("--out-dir", default="runs", help="folder for the demo outputs (default: ./runs)")
     s.set_defaults(func=cmd_demo)
+
+    s = sub.add_parser("overlay", help="plot mass-radius curves of run files over forbidden regions and measurements")
+    s.add_argument("runs", nargs="+", metavar="RUN.h5", help="one or more HDF5 run files")
+    s.add_argument("-o", "--out", required=True, metavar="FIG", help="figure to write (.png, .pdf or .svg)")
+    s.add_argument("--eos", action="extend", nargs="+", metavar="NAME", help="only these EOS (default: all)")
+    s.add_argument("--constraints", metavar="FILE.toml", help="measurements to draw (TOML constraints file)")
+    s.add_argument("--panels", action="store_true", help="add M(rho_c), z(M) and Lambda(M) panels")
+    s.set_defaults(func=cmd_overlay)
+
+    s = sub.add_parser("redshift", help="export surface redshifts and gravities for spectral fitting")
+    s.add_argument("run", nargs="?", metavar="RUN.h5", help="HDF5 run file (not with --grid-*)")
+    s.add_argument("-o", "--out", metavar="OUT", help="table to write (.ecsv, .csv or .h5)")
+    s.add_argument("--eos", action="extend", nargs="+", metavar="NAME", help="only these EOS (default: all)")
+    s.add_argument("--stable-only", action="store_true", help="only stars of the stable branch")
+    s.add_argument("--masses", metavar="MIN:MAX:STEP", help="solve stable-branch stars at these masses [Msun]")
+    s.add_argument("--grid-mass", metavar="MIN:MAX:STEP", help="EOS-independent grid: masses [Msun]")
+    s.add_argument("--grid-radius", metavar="MIN:MAX:STEP", help="EOS-independent grid: radii [km]")
+    s.add_argument("--observed-z", type=float, metavar="Z", help="list M and R ranges consistent with this z")
+    s.add_argument("--sigma", type=float, metavar="S", help="1-sigma uncertainty of --observed-z")
+    s.set_defaults(func=cmd_redshift)
     return p
 
 

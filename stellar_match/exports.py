@@ -167,8 +167,14 @@ def select_sequences(runs, names: list[str] | None = None) -> list[tuple[str, EO
     counts: dict[str, int] = {}
     for _, name, _ in available:
         counts[name] = counts.get(name, 0) + 1
+    stems = [Path(run.path).stem for run in runs]
+    unique_stems = len(set(stems)) == len(stems)
+
+    def tag(run) -> str:
+        return Path(run.path).stem if unique_stems else str(run.path)
+
     return [
-        (name if counts[name] == 1 else f"{name} ({Path(run.path).stem})", seq)
+        (name if counts[name] == 1 else f"{name} ({tag(run)})", seq)
         for run, name, seq in available
         if not names or name in names
     ]
@@ -226,12 +232,15 @@ def _surface_columns(mass, radius, redshift=None, gravity=None) -> dict[str, np.
     }
 
 
-def _star_table(parts: list[tuple[str, dict[str, np.ndarray]]], meta: dict) -> ExportTable:
+def _star_table(parts: list[tuple[str, dict[str, np.ndarray]]], meta: dict,
+                requested: np.ndarray | None = None) -> ExportTable:
     columns: dict[str, list] = {k: [] for k in REDSHIFT_COLUMNS}
     for label, stars in parts:
         n = len(stars["mass"])
         derived = _surface_columns(stars["mass"], stars["radius"],
                                    stars.get("surface_redshift"), stars.get("surface_gravity"))
+        if "compactness" in stars:  # the run's own value, bit for bit
+            derived["compactness"] = np.asarray(stars["compactness"], dtype=float)
         columns["eos"].append(np.full(n, label, dtype=object))
         columns["central_density"].append(np.asarray(stars["central_density"], dtype=float))
         columns["mass"].append(np.asarray(stars["mass"], dtype=float))
@@ -240,12 +249,13 @@ def _star_table(parts: list[tuple[str, dict[str, np.ndarray]]], meta: dict) -> E
             columns[k].append(v)
     data = {k: (np.concatenate(v) if v else np.zeros(0)) for k, v in columns.items()}
     data["eos"] = data["eos"].astype(str)
-    return ExportTable(
-        columns=data,
-        units={k: u for k, (u, _) in REDSHIFT_COLUMNS.items()},
-        descriptions={k: d for k, (_, d) in REDSHIFT_COLUMNS.items()},
-        meta=meta,
-    )
+    unit_of = {k: u for k, (u, _) in REDSHIFT_COLUMNS.items()}
+    text_of = {k: d for k, (_, d) in REDSHIFT_COLUMNS.items()}
+    if requested is not None:  # the row key of a mass-sampled table, kept on NaN rows too
+        data = {"eos": data.pop("eos"), "requested_mass": np.tile(requested, len(parts))} | data
+        unit_of["requested_mass"] = "solMass"
+        text_of["requested_mass"] = "mass asked for (--masses); the star's mass matches it to 1e-6"
+    return ExportTable(columns=data, units=unit_of, descriptions=text_of, meta=meta)
 
 
 def redshift_table(sequences: list[tuple[str, EOSSequence]], *, stable_only: bool = False,
@@ -259,8 +269,9 @@ def redshift_table(sequences: list[tuple[str, EOSSequence]], *, stable_only: boo
     parts = []
     for label, seq in sequences:
         keep = seq.stable if stable_only else np.ones(len(seq["mass"]), dtype=bool)
-        parts.append((label, {k: np.asarray(seq[k])[keep] for k in
-                              ("central_density", "mass", "radius", "surface_redshift", "surface_gravity")}))
+        parts.append((label, {k: np.asarray(seq[k])[keep] for k in ("central_density", "mass", "radius",
+                                                                     "compactness", "surface_redshift",
+                                                                     "surface_gravity")}))
     meta = dict(meta or {})
     meta["selection"] = "stable branch only" if stable_only else "every star of the sweep"
     return _star_table(parts, meta)
@@ -272,8 +283,9 @@ def redshift_table_at_masses(sequences: list[tuple[str, EOSSequence]], masses, *
 
     Uses :func:`stellar_match.sweep.eos_from_sequence` and
     :func:`stellar_match.sweep.stars_at_masses` (mass to 1e-6 relative).
-    Masses the stable branch does not reach give NaN rows (the requested
-    mass is still not written: ``mass`` is NaN too), and a note.
+    A ``requested_mass`` column follows ``eos``.  Masses the stable branch
+    does not reach give NaN rows (every column but ``eos`` and
+    ``requested_mass``), and a note.
 
     Returns
     -------
@@ -297,7 +309,7 @@ def redshift_table_at_masses(sequences: list[tuple[str, EOSSequence]], masses, *
     meta = dict(meta or {})
     meta["selection"] = "stable branch at requested masses (fresh solves); NaN rows: mass not reached"
     meta["requested_masses_msun"] = " ".join(f"{m:g}" for m in masses)
-    return _star_table(parts, meta), notes
+    return _star_table(parts, meta, requested=masses), notes
 
 
 def redshift_grid(masses, radii, *, meta: dict | None = None) -> ExportTable:

@@ -35,7 +35,10 @@ import numpy as np
 from .errors import RunFileError
 from .sequence import EOSSequence
 
-__all__ = ["STAR_DATASETS", "TARGET_DATASETS", "BINARY_DATASETS", "FORMAT", "FORMAT_VERSION", "RunFileWriter", "RunFile", "read_run"]
+__all__ = [
+    "STAR_DATASETS", "TARGET_DATASETS", "BINARY_DATASETS", "FORMAT", "FORMAT_VERSION",
+    "RunFileWriter", "RunFile", "read_run",
+]
 
 FORMAT = "stellar_match.run"
 FORMAT_VERSION = 1

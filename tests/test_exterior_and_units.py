@@ -3,9 +3,9 @@
 from __future__ import annotations
 
 import astropy.units as au
-from astropy.constants import codata2018, iau2015
 import numpy as np
 import pytest
+from astropy.constants import codata2018, iau2015
 
 from stellar_match import exterior, units
 

@@ -1,0 +1,467 @@
+"""Figures: candidate EOS overlaid on the forbidden regions and the user's measurements.
+
+:func:`overlay_figure` draws the mass-radius curves of any number of EOS
+sequences (stable branch solid, unstable branch dashed, maximum-mass star
+marked), shades the regions no static star may enter
+(:data:`stellar_match.exports.FORBIDDEN_REGIONS`), draws the measurements of
+a constraints file (:func:`load_constraints`), and with ``panels=True`` adds
+M(rho_c), z(M) and -- when the sequences have a ``tidal_deformability``
+column -- Lambda(M).  It returns a :class:`matplotlib.figure.Figure` built
+with the object-oriented API (no pyplot, no global state), which
+:func:`save_figure` writes as PNG, PDF or SVG.
+
+Colours are samples of matplotlib's "cividis" colormap, whose lightness
+rises monotonically (readable in greyscale and for colour-blind readers);
+each EOS also gets its own marker so curves stay apart in print.
+"""
+
+from __future__ import annotations
+
+import math
+import tomllib
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from matplotlib import colormaps
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+from matplotlib.patches import Ellipse, Rectangle
+from matplotlib.ticker import NullFormatter
+
+from . import exterior, units
+from .errors import ConfigError, InputError
+from .exports import FORBIDDEN_REGIONS, check_output_path
+from .sequence import EOSSequence
+
+__all__ = [
+    "FIGURE_FORMATS",
+    "MassMeasurement",
+    "EllipseMeasurement",
+    "BoxMeasurement",
+    "Constraints",
+    "load_constraints",
+    "parse_constraints",
+    "overlay_figure",
+    "save_figure",
+]
+
+FIGURE_FORMATS = (".png", ".pdf", ".svg")
+
+_MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">", "h")
+#: Grey levels of the forbidden regions, outermost (causality) lightest.
+_REGION_GREYS = {"causality": "0.88", "buchdahl": "0.74", "horizon": "0.55"}
+_RADIUS_LABEL = "Radius R [km]"
+_MASS_LABEL = r"Mass M [M$_\odot$]"
+
+
+# --- constraints file -----------------------------------------------------------
+
+@dataclass(frozen=True)
+class MassMeasurement:
+    """A mass measurement M = mass +- sigma (Msun), drawn as a horizontal band."""
+
+    label: str
+    mass: float
+    sigma: float
+    two_sigma: bool = False
+
+
+@dataclass(frozen=True)
+class EllipseMeasurement:
+    """A correlated Gaussian (M, R) measurement, drawn as 1- and 2-sigma ellipses."""
+
+    label: str
+    mass: float
+    radius: float
+    sigma_mass: float
+    sigma_radius: float
+    correlation: float = 0.0
+
+
+@dataclass(frozen=True)
+class BoxMeasurement:
+    """A rectangular (M, R) region, e.g. a quoted range of both."""
+
+    label: str
+    mass_min: float
+    mass_max: float
+    radius_min: float
+    radius_max: float
+
+
+@dataclass
+class Constraints:
+    """The measurements of a constraints file, in file order per kind."""
+
+    title: str = ""
+    mass: list[MassMeasurement] = field(default_factory=list)
+    ellipse: list[EllipseMeasurement] = field(default_factory=list)
+    box: list[BoxMeasurement] = field(default_factory=list)
+
+
+#: Keys of every block: key -> (type, required); types: "label", "positive", "number", "bool".
+_CONSTRAINT_KEYS: dict[str, tuple[type, dict[str, tuple[str, bool]]]] = {
+    "mass": (MassMeasurement, {"label": ("label", True), "mass": ("positive", True),
+                               "sigma": ("positive", True), "two_sigma": ("bool", False)}),
+    "ellipse": (EllipseMeasurement, {"label": ("label", True), "mass": ("positive", True),
+                                     "radius": ("positive", True), "sigma_mass": ("positive", True),
+                                     "sigma_radius": ("positive", True), "correlation": ("number", False)}),
+    "box": (BoxMeasurement, {"label": ("label", True), "mass_min": ("positive", True),
+                             "mass_max": ("positive", True), "radius_min": ("positive", True),
+                             "radius_max": ("positive", True)}),
+}
+
+
+def _value(v, what: str, source: str, key: str):
+    if what == "label":
+        if not isinstance(v, str) or not v.strip():
+            raise ConfigError(f"needs a non-empty string, got {v!r}", source=source, key=key)
+        return v
+    if what == "bool":
+        if not isinstance(v, bool):
+            raise ConfigError(f"needs true or false, got {v!r}", source=source, key=key)
+        return v
+    if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
+        raise ConfigError(f"needs a finite number, got {v!r}", source=source, key=key)
+    if what == "positive" and v <= 0:
+        raise ConfigError(f"needs a positive number, got {v!r}", source=source, key=key)
+    return float(v)
+
+
+def parse_constraints(text: str, *, source: str = "<constraints>") -> Constraints:
+    """Validate constraints TOML text (see :func:`load_constraints`)."""
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(f"not valid TOML ({exc})", source=source) from None
+    allowed = {"title", *_CONSTRAINT_KEYS}
+    for k in data:
+        if k not in allowed:
+            raise ConfigError(f"unknown key (expected one of: {', '.join(sorted(allowed))})", source=source, key=k)
+    out = Constraints(title=_value(data["title"], "label", source, "title") if "title" in data else "")
+    for kind, (cls, keys) in _CONSTRAINT_KEYS.items():
+        blocks = data.get(kind, [])
+        if not isinstance(blocks, list) or not all(isinstance(b, dict) for b in blocks):
+            raise ConfigError(f"needs [[{kind}]] blocks", source=source, key=kind)
+        for i, block in enumerate(blocks):
+            where = f"{kind}[{i}]"
+            for k in block:
+                if k not in keys:
+                    raise ConfigError(f"unknown key (expected one of: {', '.join(keys)})",
+                                      source=source, key=f"{where}.{k}")
+            values = {}
+            for k, (what, required) in keys.items():
+                if k in block:
+                    values[k] = _value(block[k], what, source, f"{where}.{k}")
+                elif required:
+                    raise ConfigError("missing", source=source, key=f"{where}.{k}")
+            item = cls(**values)
+            _check_measurement(item, source, where)
+            getattr(out, kind).append(item)
+    return out
+
+
+def _check_measurement(item, source: str, where: str) -> None:
+    if isinstance(item, EllipseMeasurement) and not -1.0 < item.correlation < 1.0:
+        raise ConfigError(f"needs -1 < correlation < 1, got {item.correlation:g}",
+                          source=source, key=f"{where}.correlation")
+    if isinstance(item, BoxMeasurement):
+        for q in ("mass", "radius"):
+            if getattr(item, f"{q}_max") <= getattr(item, f"{q}_min"):
+                raise ConfigError(f"{q}_max must exceed {q}_min", source=source, key=f"{where}.{q}_max")
+
+
+def load_constraints(path: str | Path) -> Constraints:
+    """Read a constraints file: measurements to draw over the mass-radius curves.
+
+    Top-level keys: ``title`` (optional string) and arrays of tables
+    ``[[mass]]`` (label, mass, sigma, two_sigma), ``[[ellipse]]`` (label,
+    mass, radius, sigma_mass, sigma_radius, correlation) and ``[[box]]``
+    (label, mass_min, mass_max, radius_min, radius_max); masses in Msun,
+    radii in km.
+
+    Raises
+    ------
+    ConfigError
+        Naming the file and the dotted key (``ellipse[0].correlation``) for
+        unreadable TOML, unknown keys, missing keys, wrong types or values.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise ConfigError("constraints file not found", source=str(path)) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise ConfigError(f"cannot read constraints file ({exc})", source=str(path)) from None
+    return parse_constraints(text, source=str(path))
+
+
+# --- drawing ------------------------------------------------------------------------
+
+def _palette(n: int) -> list:
+    """n colours from cividis, dark to light, stopping before the palest yellow."""
+    cmap = colormaps["cividis"]
+    return [cmap(v) for v in (np.linspace(0.0, 0.78, n) if n > 1 else [0.0])]
+
+
+def _curve(seq: EOSSequence, x_key: str, y_key: str):
+    """(x, y, stable) in central-density order, with the maximum-mass star inserted."""
+    rho = np.asarray(seq["central_density"], dtype=float)
+    order = np.argsort(rho, kind="stable")
+    x = np.asarray(seq[x_key], dtype=float)[order]
+    y = np.asarray(seq[y_key], dtype=float)[order]
+    stable = seq.stable[order]
+    s = seq.summary
+    point = {"mass": s.get("max_mass", np.nan), "radius": s.get("max_mass_radius", np.nan),
+             "central_density": s.get("max_mass_central_density", np.nan)}
+    if "surface_redshift" in (x_key, y_key):
+        point["surface_redshift"] = float(exterior.redshift_at_radius(point["mass"], point["radius"]))
+    if x_key in point and y_key in point and np.isfinite(point["central_density"]) and np.isfinite(point["mass"]):
+        i = int(np.searchsorted(rho[order], point["central_density"]))
+        x, y = np.insert(x, i, point[x_key]), np.insert(y, i, point[y_key])
+        stable = np.insert(stable, i, True)
+    return x, y, stable
+
+
+def _draw_sequence(ax, seq: EOSSequence, x_key: str, y_key: str, color, marker: str, label: str,
+                   legend: bool = True):
+    """Stable runs solid, unstable runs dashed (joined at their shared star); M_max marked."""
+    x, y, stable = _curve(seq, x_key, y_key)
+    ok = np.isfinite(x) & np.isfinite(y)
+    x, y, stable = x[ok], y[ok], stable[ok]
+    starts = np.flatnonzero(np.concatenate([[True], stable[1:] != stable[:-1]]))
+    ends = np.append(starts[1:], x.size)
+    for a, b in zip(starts, ends, strict=True):
+        run = slice(max(a - 1, 0), b)  # start at the previous run's last star: no gap
+        ax.plot(x[run], y[run], color=color, lw=1.9 if stable[a] else 1.3,
+                ls="-" if stable[a] else (0, (4, 2.5)), gid=f"{label}:{'stable' if stable[a] else 'unstable'}")
+    s = seq.summary
+    keys = {"radius": s.get("max_mass_radius", np.nan), "mass": s.get("max_mass", np.nan),
+            "central_density": s.get("max_mass_central_density", np.nan)}
+    if x_key in keys and y_key in keys:
+        ax.plot([keys[x_key]], [keys[y_key]], marker=marker, color=color, ms=7, mec="black", mew=0.8,
+                ls="none", zorder=5, gid=f"{label}:max_mass")
+    elif y_key == "surface_redshift" and x_key == "mass":
+        ax.plot([keys["mass"]], [exterior.redshift_at_radius(keys["mass"], keys["radius"])], marker=marker,
+                color=color, ms=7, mec="black", mew=0.8, ls="none", zorder=5, gid=f"{label}:max_mass")
+    return Line2D([], [], color=color, lw=1.9, marker=marker, mec="black", mew=0.8, label=label if legend else None)
+
+
+def _forbidden(ax, r_max: float, m_top: float) -> None:
+    """Shade R < k GM/c^2 for every forbidden region; boundary lines carry gid 'forbidden:<name>'."""
+    r = np.linspace(0.0, r_max, 200)
+    for name, (k, _label, _) in reversed(list(FORBIDDEN_REGIONS.items())):
+        m_line = r / (k * units.SOLAR_MASS_KM)
+        ax.fill_between(r, m_line, m_top, color=_REGION_GREYS[name], lw=0, zorder=0)
+        ax.plot(r, m_line, color="0.35", lw=0.8, zorder=1, gid=f"forbidden:{name}")
+
+
+def _label_forbidden(ax) -> None:
+    """Write each region's label along its boundary near the top of the axes, rotated with the line.
+
+    Near the top the wedges are widest and measurement bands (usually at
+    1.2-2.1 Msun) rarely reach; the text ends at the anchor and runs down-left.
+    """
+    (x0, x1), (y0, y1) = ax.get_xlim(), ax.get_ylim()
+    for name, (k, label, _) in FORBIDDEN_REGIONS.items():
+        slope = 1.0 / (k * units.SOLAR_MASS_KM)  # dM/dR of the boundary
+        m = y0 + 0.96 * (y1 - y0)
+        r = m / slope
+        if not x0 < r < x1:
+            continue
+        ax.text(r, m, label.split(",")[0] + "  ", rotation=math.degrees(math.atan(slope)),
+                transform_rotates_text=True, rotation_mode="anchor", ha="right", va="bottom",
+                fontsize=7.5, color="0.1", zorder=2, gid=f"label:{name}")
+
+
+def _draw_constraints(ax, constraints: Constraints, handles: list) -> None:
+    grey = "0.25"
+    hatches = ("//", "\\\\", "xx", "..")
+    for i, c in enumerate(constraints.mass):
+        hatch = hatches[i % len(hatches)]
+        if c.two_sigma:
+            ax.axhspan(c.mass - 2 * c.sigma, c.mass + 2 * c.sigma, facecolor="none", edgecolor=grey,
+                       hatch=hatch, lw=0.0, alpha=0.35, zorder=1)
+        ax.axhspan(c.mass - c.sigma, c.mass + c.sigma, facecolor="none", edgecolor=grey, hatch=hatch,
+                   lw=0.6, zorder=1, gid=f"mass:{c.label}")
+        sig = r" (1$\sigma$; faint: 2$\sigma$)" if c.two_sigma else ""
+        handles.append(Rectangle((0, 0), 1, 1, facecolor="none", edgecolor=grey, hatch=hatch,
+                                 label=f"{c.label}, {c.mass:g} $\\pm$ {c.sigma:g} M$_\\odot${sig}"))
+    for i, c in enumerate(constraints.ellipse):
+        ls = ("-", "--", ":", "-.")[i % 4]
+        cov = np.array([[c.sigma_radius**2, c.correlation * c.sigma_radius * c.sigma_mass],
+                        [c.correlation * c.sigma_radius * c.sigma_mass, c.sigma_mass**2]])
+        vals, vecs = np.linalg.eigh(cov)
+        angle = math.degrees(math.atan2(vecs[1, 1], vecs[0, 1]))
+        for n, alpha in ((2, 0.12), (1, 0.28)):
+            ax.add_patch(Ellipse((c.radius, c.mass), 2 * n * math.sqrt(vals[1]), 2 * n * math.sqrt(vals[0]),
+                                 angle=angle, facecolor=(0.1, 0.1, 0.1, alpha), edgecolor="black", lw=0.9,
+                                 ls=ls, zorder=3, gid=f"ellipse:{c.label}:{n}sigma"))
+        handles.append(Ellipse((0, 0), 1, 1, facecolor=(0.1, 0.1, 0.1, 0.28), edgecolor="black", ls=ls,
+                               label=f"{c.label}, 1$\\sigma$ and 2$\\sigma$"))
+    for c in constraints.box:
+        ax.add_patch(Rectangle((c.radius_min, c.mass_min), c.radius_max - c.radius_min, c.mass_max - c.mass_min,
+                               facecolor=(0.1, 0.1, 0.1, 0.10), edgecolor="black", lw=0.9, ls="-.", zorder=3,
+                               gid=f"box:{c.label}"))
+        handles.append(Rectangle((0, 0), 1, 1, facecolor=(0.1, 0.1, 0.1, 0.10), edgecolor="black", ls="-.",
+                                 label=c.label))
+
+
+def _mass_radius_limits(sequences, constraints: Constraints | None) -> tuple[tuple, tuple]:
+    m_top = max([float(np.nanmax(s["mass"])) for _, s in sequences] + [0.5])
+    r_lo, r_hi = [], []
+    for _, s in sequences:
+        # stable stars above 0.3 M_max: the light, huge stars would squeeze the interesting part
+        big = s.stable & (np.asarray(s["mass"]) >= 0.3 * float(np.nanmax(s["mass"])))
+        if not big.any():
+            continue
+        r_lo.append(float(np.nanmin(np.asarray(s["radius"])[big])))
+        r_hi.append(float(np.nanmax(np.asarray(s["radius"])[big])))
+    if constraints is not None:
+        for c in constraints.mass:
+            m_top = max(m_top, c.mass + (2 if c.two_sigma else 1) * c.sigma)
+        for e in constraints.ellipse:
+            m_top = max(m_top, e.mass + 2 * e.sigma_mass)
+            r_lo.append(e.radius - 2 * e.sigma_radius)
+            r_hi.append(e.radius + 2 * e.sigma_radius)
+        for b in constraints.box:
+            m_top = max(m_top, b.mass_max)
+            r_lo.append(b.radius_min)
+            r_hi.append(b.radius_max)
+    top = 1.18 * m_top
+    # far enough left that the horizon wedge, the narrowest, is wide enough for its label
+    horizon_r = 0.96 * top * FORBIDDEN_REGIONS["horizon"][0] * units.SOLAR_MASS_KM
+    left = max(0.0, min(math.floor(min(r_lo or [8.0])) - 3.0, math.floor(horizon_r - 1.5)))
+    right = math.ceil(max(r_hi or [16.0])) + 1.0
+    return (left, right), (0.0, top)
+
+
+def overlay_figure(
+    sequences: list[tuple[str, EOSSequence]],
+    constraints: Constraints | None = None,
+    *,
+    panels: bool = False,
+    title: str | None = None,
+) -> Figure:
+    """Mass-radius curves of several EOS over forbidden regions and measurements.
+
+    Parameters
+    ----------
+    sequences : list of (label, EOSSequence)
+        What to draw, e.g. from :func:`stellar_match.exports.select_sequences`.
+    constraints : Constraints, optional
+        Measurements from :func:`load_constraints`.
+    panels : bool
+        Add M(rho_c), z(M) and (if any sequence has ``tidal_deformability``)
+        Lambda(M) panels beside the mass-radius plot.
+    title : str, optional
+        Figure title (default: the constraints file's ``title``).
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Axes ``fig.axes[0]`` is the mass-radius plot.  Lines carry gids:
+        ``"forbidden:<region>"`` for the region boundaries (M = R/(k GM_sun/c^2)),
+        ``"<eos>:stable"``, ``"<eos>:unstable"``, ``"<eos>:max_mass"``.
+    """
+    if not sequences:
+        raise InputError("no EOS to plot")
+    tidal = any("tidal_deformability" in s.columns for _, s in sequences)
+    if panels:
+        rows = [["mr", "rho"], ["mr", "z"]] + ([["mr", "lam"]] if tidal else [])
+        fig = Figure(figsize=(11.5, 3.0 * len(rows) + 0.6), layout="constrained")
+        axd = fig.subplot_mosaic(rows, width_ratios=[1.35, 1.0])
+        ax = axd["mr"]
+    else:
+        fig = Figure(figsize=(7.6, 7.4), layout="constrained")
+        ax = fig.add_subplot()
+        axd = {"mr": ax}
+    colors = _palette(len(sequences))
+    markers = [_MARKERS[i % len(_MARKERS)] for i in range(len(sequences))]
+
+    xlim, ylim = _mass_radius_limits(sequences, constraints)
+    _forbidden(ax, xlim[1], ylim[1])
+    handles = [_draw_sequence(ax, s, "radius", "mass", c, mk, label)
+               for (label, s), c, mk in zip(sequences, colors, markers, strict=True)]
+    handles += [Line2D([], [], color="black", lw=1.9, label="stable branch"),
+                Line2D([], [], color="black", lw=1.3, ls=(0, (4, 2.5)), label="unstable branch"),
+                Line2D([], [], color="none", marker="o", mfc="white", mec="black", label="maximum mass")]
+    if constraints is not None:
+        _draw_constraints(ax, constraints, handles)
+    ax.set_xlim(xlim)
+    ax.set_ylim(ylim)
+    ax.set_xlabel(_RADIUS_LABEL)
+    ax.set_ylabel(_MASS_LABEL)
+    _label_forbidden(ax)
+    # outside the axes, so the legend never hides a curve or a measurement
+    fig.legend(handles=handles, loc="outside lower center", ncols=3 if panels else 2, fontsize=8, frameon=False)
+
+    if panels:
+        _side_panels(axd, sequences, colors, markers, tidal)
+    heading = title if title is not None else (constraints.title if constraints else "")
+    if heading:
+        fig.suptitle(heading, fontsize=12)
+    return fig
+
+
+def _side_panels(axd: dict, sequences, colors, markers, tidal: bool) -> None:
+    ax = axd["rho"]
+    for (label, s), c, mk in zip(sequences, colors, markers, strict=True):
+        _draw_sequence(ax, s, "central_density", "mass", c, mk, label, legend=False)
+    ax.set_xscale("log")
+    lo, hi = ax.get_xlim()
+    ticks = [t * 10.0**e for e in range(10, 20) for t in (1, 2, 5) if lo <= t * 10.0**e <= hi]
+    ax.set_xticks(ticks, labels=[f"${t / 10**math.floor(math.log10(t)):.0f}\\times10^{{{math.floor(math.log10(t))}}}$"
+                                 for t in ticks])
+    ax.xaxis.set_minor_formatter(NullFormatter())  # the automatic minor labels collide
+    ax.set_xlabel(r"Central density $\rho_c$ [g cm$^{-3}$]")
+    ax.set_ylabel(_MASS_LABEL)
+    ax.set_ylim(bottom=0.0)
+
+    ax = axd["z"]
+    for (label, s), c, mk in zip(sequences, colors, markers, strict=True):
+        _draw_sequence(ax, s, "mass", "surface_redshift", c, mk, label, legend=False)
+    k = FORBIDDEN_REGIONS["causality"][0]
+    z_causal = 1.0 / math.sqrt(1.0 - 2.0 / k) - 1.0
+    top = max(ax.get_ylim()[1], 1.1 * z_causal)
+    ax.axhspan(z_causal, top, color=_REGION_GREYS["causality"], lw=0, zorder=0)
+    ax.axhline(z_causal, color="0.35", lw=0.8, zorder=1, gid="forbidden:causality_z")
+    ax.text(0.02, z_causal, f" causality: z > {z_causal:.3f} forbidden", transform=ax.get_yaxis_transform(),
+            va="bottom", fontsize=7.5, color="0.15")
+    ax.set_ylim(0.0, top)
+    ax.set_xlim(left=0.0)
+    ax.set_xlabel(_MASS_LABEL)
+    ax.set_ylabel("Surface redshift z")
+
+    if tidal:
+        ax = axd["lam"]
+        for (label, s), c, mk in zip(sequences, colors, markers, strict=True):
+            if "tidal_deformability" in s.columns:
+                _draw_sequence(ax, s, "mass", "tidal_deformability", c, mk, label, legend=False)
+        ax.set_yscale("log")
+        lam = np.concatenate([np.asarray(s["tidal_deformability"])[s.stable & (np.asarray(s["mass"]) >= 0.5)]
+                              for _, s in sequences if "tidal_deformability" in s.columns])
+        lam = lam[np.isfinite(lam) & (lam > 0)]
+        if lam.size:  # the light stars' huge Lambda would flatten the interesting range
+            ax.set_ylim(lam.min() / 2.0, lam.max() * 2.0)
+        ax.set_xlim(left=0.0)
+        ax.set_xlabel(_MASS_LABEL)
+        ax.set_ylabel(r"Tidal deformability $\Lambda$")
+
+
+def save_figure(fig: Figure, path: str | Path) -> Path:
+    """Write ``fig`` as PNG (200 dpi), PDF or SVG according to the extension of ``path``.
+
+    Raises
+    ------
+    InputError
+        For another extension or an unwritable path.
+    """
+    path = check_output_path(path, FIGURE_FORMATS)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fig.savefig(path, dpi=200)
+    except OSError as exc:
+        raise InputError(f"cannot write here ({exc.strerror or exc})", source=str(path)) from None
+    return path
