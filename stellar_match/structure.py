@@ -146,8 +146,8 @@ class StepControl:
     """
 
     density_step: float = 0.12
-    enthalpy_step: float = 0.012
-    envelope_density: float = 1e8
+    enthalpy_step: float = 0.08
+    envelope_density: float = 1e10
     startup_growth: float = 0.6
     start_offset: float = 1e-4
     tableau: RungeKuttaTableau = DORMAND_PRINCE_5
@@ -168,6 +168,12 @@ DEFAULT_STEPS = StepControl()
 #: A star's envelope starts at most this fraction of its central density down
 #: (so low-density, Newtonian stars keep density-following steps).
 ENVELOPE_FRACTION = 1e-6
+#: Below a star's envelope enthalpy h_env, edges sit at h_env g^k, k = 1..ENVELOPE_STEPS.
+ENVELOPE_GRADING = 0.4
+ENVELOPE_STEPS = 10
+#: Stars less compact than this are re-solved with a deeper envelope (see solve_interiors).
+LOW_COMPACTNESS = 0.01
+REDO_ENVELOPE_FRACTION = 1e-13
 #: EOS values at a step edge h = 0 are taken at SURFACE_GUARD * h_c instead:
 #: d eps/dh diverges at p = 0 when the outermost piece has Gamma > 2.
 SURFACE_GUARD = 1e-12
@@ -255,18 +261,23 @@ def response_series(p_c, eps_c, deps_dh_c, h_c, x):
     return np.stack([y, 1.0 + omega1 * x, psi0 + f1 / 7.0 * x])
 
 
-def structure_rhs(y, p, eps, rho):
-    """d(u, v, w)/dh for state ``y`` (shape (3, n)) and EOS values at the same h."""
-    u, v, w = y
-    two_m_over_r = 2.0 * u * v
-    du = -2.0 * (1.0 - two_m_over_r) / (v + FOUR_PI * p)
+def structure_rhs(y, p, eps, rho, out=None):
+    """d(u, v, w)/dh for state ``y`` (shape (3, n)) and EOS values at the same h.
+
+    Writes into ``out`` (shape (3, n)) when given, to spare an allocation per stage.
+    """
+    u, v, w = y[0], y[1], y[2]
+    out = np.empty((3,) + np.shape(u)) if out is None else out
+    f = 1.0 - 2.0 * u * v
+    du = out[0]
+    np.divide(-2.0 * f, v + FOUR_PI * p, out=du)
     q = du / u
-    dv = q * (2.0 * np.pi * eps - 1.5 * v)
-    dw = q * (2.0 * np.pi * rho / np.sqrt(1.0 - two_m_over_r) - 1.5 * w)
-    return np.stack([du, dv, dw])
+    np.multiply(q, 2.0 * np.pi * eps - 1.5 * v, out=out[1])
+    np.multiply(q, 2.0 * np.pi * rho / np.sqrt(f) - 1.5 * w, out=out[2])
+    return out
 
 
-def response_rhs(h, y, p, eps, rho, deps_dh):
+def response_rhs(h, y, p, eps, rho, deps_dh, out=None):
     """d/dh of (u, v, w, y, omega, psi): structure plus tidal and rotational response.
 
     With q = (du/dh)/u, f = 1 - 2m/r, e^lambda = 1/f:
@@ -282,21 +293,25 @@ def response_rhs(h, y, p, eps, rho, deps_dh):
       d omega/dh = (du/dh) psi / (2 jhat),
       d psi/dh = (q/2) [16 pi (eps + p) e^lambda jhat omega - 5 psi].
     """
-    u, v, w, yy, om, psi = y
+    u, v, w, yy, om, psi = y[0], y[1], y[2], y[3], y[4], y[5]
+    out = np.empty((6,) + np.shape(u)) if out is None else out
     f = 1.0 - 2.0 * u * v
     dd = v + FOUR_PI * p
-    du = -2.0 * f / dd
-    q = du / u
     e_lam = 1.0 / f
-    dv = q * (2.0 * np.pi * eps - 1.5 * v)
+    du = out[0]
+    np.multiply(-2.0 * f, 1.0 / dd, out=du)
+    q = du / u
+    half_q = 0.5 * q
+    np.multiply(q, 2.0 * np.pi * eps - 1.5 * v, out=out[1])
     sqrt_f = np.sqrt(f)
-    dw = q * (2.0 * np.pi * rho / sqrt_f - 1.5 * w)
-    u_q = FOUR_PI * u * e_lam * (5.0 * eps + 9.0 * p + deps_dh) - 6.0 * e_lam - 4.0 * (u * dd * e_lam) ** 2
-    dy = -0.5 * q * (yy * yy + yy * e_lam * (1.0 + FOUR_PI * u * (p - eps)) + u_q)
+    np.multiply(q, 2.0 * np.pi * rho / sqrt_f - 1.5 * w, out=out[2])
+    u_e_lam = u * e_lam
+    u_q = FOUR_PI * u_e_lam * (5.0 * eps + 9.0 * p + deps_dh) - 6.0 * e_lam - 4.0 * (u_e_lam * dd) ** 2
+    np.multiply(-half_q, yy * yy + yy * e_lam * (1.0 + FOUR_PI * u * (p - eps)) + u_q, out=out[3])
     jhat = np.exp(h) * sqrt_f
-    dom = 0.5 * du * psi / jhat
-    dpsi = 0.5 * q * (16.0 * np.pi * (eps + p) * e_lam * jhat * om - 5.0 * psi)
-    return np.stack([du, dv, dw, dy, dom, dpsi])
+    np.multiply(0.5 * du, psi / jhat, out=out[4])
+    np.multiply(half_q, 16.0 * np.pi * (eps + p) * e_lam * jhat * om - 5.0 * psi, out=out[5])
+    return out
 
 
 def _hinderer_denominator_series(order: int = 40) -> np.ndarray:
@@ -368,13 +383,14 @@ def love_number_k2(compactness, y_surface):
 def eos_nodes(eos: EquationOfState, control: StepControl, h_top: float, rho_floor: float):
     """Star-independent step edges of one EOS below ``h_top``.
 
-    Returns two ascending arrays of log-enthalpies:
+    Returns three ascending arrays of log-enthalpies:
 
-    * ``always``: the EOS breakpoints and nodes every ``enthalpy_step`` in h;
+    * ``always``: nodes every ``enthalpy_step`` in h;
     * ``density``: a lattice ln(rho / 1 g cm^-3) = k ``density_step`` (k
       integer) from ``rho_floor`` (g/cm^3) up.  A star uses the lattice nodes
       above its own envelope density, so every star sees the same nodes
-      whatever else is in its batch.
+      whatever else is in its batch;
+    * ``breaks``: the EOS breakpoints, each an edge for every star below it.
 
     A node closer than a third of its local spacing to a breakpoint is
     dropped, so table knots do not double the step count.
@@ -405,12 +421,13 @@ def eos_nodes(eos: EquationOfState, control: StepControl, h_top: float, rho_floo
         spacing = np.minimum(control.enthalpy_step, control.density_step * cs2)
         return nodes[near > spacing / 3.0]
 
-    return np.unique(np.concatenate([thin(h_nodes), breaks])), np.unique(thin(density))
+    return np.unique(thin(h_nodes)), np.unique(thin(density)), breaks
 
 
 def step_grid(
     always: np.ndarray,
     density: np.ndarray,
+    breakpoints: np.ndarray,
     central_enthalpy: np.ndarray,
     start_offset: np.ndarray,
     startup_end: np.ndarray,
@@ -421,7 +438,7 @@ def step_grid(
 
     Parameters
     ----------
-    always, density : ndarray
+    always, density, breakpoints : ndarray
         Star-independent edges from :func:`eos_nodes`, ascending.
     central_enthalpy, start_offset, startup_end, envelope_enthalpy : ndarray, shape (n,)
         h_c, the series hand-over distance x_0, the distance from the centre
@@ -442,11 +459,19 @@ def step_grid(
     x = np.minimum(start_offset[None, :] * (1.0 + growth) ** k, startup_end[None, :])
     top = (h_c - startup_end)[None, :]
     use_always = always[:, None] < top
-    use_density = (density[:, None] < top) & (density[:, None] > envelope_enthalpy[None, :])
+    use_density = (density[:, None] < top) & (density[:, None] >= envelope_enthalpy[None, :])
+    # every breakpoint below the start is an edge, also inside the start-up region
+    use_breaks = breakpoints[:, None] < (h_c - start_offset)[None, :]
+    # the envelope is graded geometrically towards h = 0: there 1/r, not r, is
+    # nearly linear in h, and a puffed-up low-mass star keeps most of its radius there
+    env = envelope_enthalpy[None, :] * ENVELOPE_GRADING ** np.arange(1, ENVELOPE_STEPS + 1)[:, None]
+    env = np.where(env < top, env, 0.0)
     h = np.concatenate([
         h_c[None, :] - x,
         np.where(use_always, always[:, None], 0.0),
         np.where(use_density, density[:, None], 0.0),
+        np.where(use_breaks, breakpoints[:, None], 0.0),
+        env,
         np.zeros((1, h_c.size)),
     ])
     return -np.sort(-h, axis=0)
@@ -477,62 +502,26 @@ def solve_interiors(
     -------
     StarInteriors
         Central and surface values, geometric units.
+
+    Notes
+    -----
+    A star's envelope, where only enthalpy steps graded towards the surface
+    are taken, starts at min(control.envelope_density, ENVELOPE_FRACTION
+    rho_c).  Stars that come out puffed up (GM/(Rc^2) < LOW_COMPACTNESS, the
+    low-mass and unstable configurations near the minimum mass) keep much of
+    their radius there, so they are solved again, each on its own grid, with
+    the envelope pushed down to REDO_ENVELOPE_FRACTION rho_c.  The decision
+    depends only on the star itself, never on its batch.
     """
     h_c = np.atleast_1d(np.asarray(central_enthalpy, dtype=float))
     if np.any(~np.isfinite(h_c) | (h_c <= 0)) or np.any(h_c > eos.h_max * (1 + 1e-12)):
         raise ValueError("central enthalpies must lie in (0, eos.h_max]")
     p_c, eps_c, rho_c = eos.state(h_c)
-    x0 = control.start_offset * h_c
-    deps_dh = eos.energy_density_slope(h_c)
-    y = central_series(p_c, eps_c, rho_c, deps_dh, x0)
-    if response:
-        y = np.concatenate([y, response_series(p_c, eps_c, deps_dh, h_c, x0)])
-    # the start-up ends where its steps reach the local EOS node spacing
-    with np.errstate(divide="ignore"):
-        density_scale = control.density_step * (eps_c + p_c) / deps_dh  # = step * c_s^2
-    local = np.minimum(control.enthalpy_step, density_scale)
-    startup_end = np.clip(local / control.startup_growth, x0, h_c - x0)
-    # each star's envelope: below min(envelope_density, ENVELOPE_FRACTION rho_c) only h-steps
-    rho_c_cgs = units.density_from_geometric(rho_c)
-    rho_env = np.minimum(control.envelope_density, ENVELOPE_FRACTION * rho_c_cgs)
-    try:
-        h_env = eos.enthalpy_of_density(units.density_to_geometric(rho_env))
-    except InputError:  # incompressible: no density axis
-        h_env = np.zeros_like(h_c)
-    always, density = eos_nodes(eos, control, float(h_c.max()), float(rho_env.min()))
-    edges = step_grid(always, density, h_c, x0, startup_end, h_env, control.startup_growth)
-    h_from, h_to = edges[:-1], edges[1:]
-    piece = eos.piece_index(0.5 * (h_from + h_to))
-
-    h_guard = SURFACE_GUARD * h_c
-    coeff_tables = eos.piece_arrays()
-    evaluate = eos.state_from_coefficients
-    slope = eos.slope_from_coefficients
-    tableau = control.tableau
-    c, a, b = tableau.c, tableau.a, tableau.b
-    stages = len(b)
-    for s in range(h_from.shape[0]):
-        h0 = h_from[s]
-        dh = h_to[s] - h0
-        idx = piece[s]
-        coeff = {k: v[idx] for k, v in coeff_tables.items()}
-        k = []
-        for i in range(stages):
-            yi = y
-            for j in range(i):
-                if a[i, j] != 0.0:
-                    yi = yi + (a[i, j] * dh) * k[j]
-            hi = np.maximum(h0 + c[i] * dh, h_guard)
-            p, e, r = evaluate(hi, coeff)
-            if response:
-                k.append(response_rhs(hi, yi, p, e, r, slope(p, e, coeff)))
-            else:
-                k.append(structure_rhs(yi, p, e, r))
-        incr = b[0] * k[0]
-        for i in range(1, stages):
-            if b[i] != 0.0:
-                incr = incr + b[i] * k[i]
-        y = y + dh * incr
+    with np.errstate(invalid="ignore", divide="ignore"):
+        y = _integrate(eos, h_c, control, response, ENVELOPE_FRACTION)
+        puffed = np.flatnonzero(~(y[1] * y[0] >= LOW_COMPACTNESS))  # m/r = v u; also NaN
+        if puffed.size:
+            y[:, puffed] = _integrate(eos, h_c[puffed], control, response, REDO_ENVELOPE_FRACTION)
 
     u, v, w = y[:3]
     radius = np.sqrt(u)
@@ -561,3 +550,52 @@ def solve_interiors(
         J = radius**5 * psi_r / np.sqrt(1.0 - 2.0 * compactness) / 6.0
         out.moment_of_inertia = J / (omega_r + 2.0 * J / r3)
     return out
+
+
+def _integrate(eos, h_c, control, response, envelope_fraction) -> np.ndarray:
+    """Final state (u, v, w[, y, omega, psi]) at h = 0 of every star, shape (3 or 6, n)."""
+    p_c, eps_c, rho_c = eos.state(h_c)
+    x0 = control.start_offset * h_c
+    deps_dh = eos.energy_density_slope(h_c)
+    y = central_series(p_c, eps_c, rho_c, deps_dh, x0)
+    if response:
+        y = np.concatenate([y, response_series(p_c, eps_c, deps_dh, h_c, x0)])
+    # the start-up ends where its steps reach the local EOS node spacing
+    density_scale = control.density_step * (eps_c + p_c) / deps_dh  # = step * c_s^2
+    local = np.minimum(control.enthalpy_step, density_scale)
+    startup_end = np.clip(local / control.startup_growth, x0, h_c - x0)
+    rho_env = np.minimum(control.envelope_density, envelope_fraction * units.density_from_geometric(rho_c))
+    try:
+        h_env = eos.enthalpy_of_density(units.density_to_geometric(rho_env))
+    except InputError:  # incompressible: no density axis
+        h_env = np.zeros_like(h_c)
+    always, density, breaks = eos_nodes(eos, control, float(h_c.max()), float(rho_env.min()))
+    edges = step_grid(always, density, breaks, h_c, x0, startup_end, h_env, control.startup_growth)
+    h_from, h_to = edges[:-1], edges[1:]
+    piece = eos.piece_index(0.5 * (h_from + h_to))
+
+    h_guard = SURFACE_GUARD * h_c
+    coeff_tables = eos.piece_arrays()
+    evaluate = eos.state_from_coefficients
+    slope = eos.slope_from_coefficients
+    tableau = control.tableau
+    c, a, b = tableau.c, tableau.a, tableau.b
+    stages = len(b)
+    # Stage derivatives live in one (stages, components, stars) array, so each
+    # stage's combination sum_j a_ij k_j is a single tensordot.
+    k = np.empty((stages,) + y.shape)
+    for s in range(h_from.shape[0]):
+        h0 = h_from[s]
+        dh = h_to[s] - h0
+        idx = piece[s]
+        coeff = {name: table[idx] for name, table in coeff_tables.items()}
+        for i in range(stages):
+            yi = y if i == 0 else y + dh * np.tensordot(a[i, :i], k[:i], axes=1)
+            hi = np.maximum(h0 + c[i] * dh, h_guard)
+            p, e, r = evaluate(hi, coeff)
+            if response:
+                response_rhs(hi, yi, p, e, r, slope(p, e, coeff), out=k[i])
+            else:
+                structure_rhs(yi, p, e, r, out=k[i])
+        y = y + dh * np.tensordot(b, k, axes=1)
+    return y
