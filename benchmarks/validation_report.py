@@ -16,8 +16,9 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "tests"))
 
-import stellar_match as sm  # noqa: E402
 from reference_solutions import tidal_and_inertia_in_radius, tov_in_enthalpy, tov_in_radius  # noqa: E402
+
+import stellar_match as sm  # noqa: E402
 from stellar_match import units  # noqa: E402
 from stellar_match.structure import solve_interiors  # noqa: E402
 
@@ -95,7 +96,8 @@ def main() -> None:
         f"{rel(st.moment_of_inertia / (st.mass * st.radius**2), 2 / 3 * (1 - 6 / np.pi**2)):.1e} (I)")
     st = solve_interiors(eos, eos.enthalpy_of_pressure(units.pressure_to_geometric(np.array([1e28]))))
     row("uniform density, C = 2e-8: k2, I/(MR^2)", "Hinderer 2008 (3/4, with the surface jump); 2/5", "1e-5",
-        f"{rel(st.love_number_k2, 0.75):.1e} (k2), {rel(st.moment_of_inertia / (st.mass * st.radius**2), 0.4):.1e} (I)")
+        f"{rel(st.love_number_k2, 0.75):.1e} (k2), "
+        f"{rel(st.moment_of_inertia / (st.mass * st.radius**2), 0.4):.1e} (I)")
     worst_il = 0.0
     for lp, g in ((34.384, [3.005, 2.988, 2.851]), (34.269, [2.830, 3.445, 3.348]), (34.669, [2.909, 2.246, 2.144]),
                   (34.495, [3.446, 3.572, 2.887])):
@@ -109,9 +111,10 @@ def main() -> None:
         worst_il = max(worst_il, rel(ibar, fit))
     row("I-Love, SLy/APR4/H4/MPA1, M > 1 Msun", "Yagi & Yunes 2013 fit (from memory)", "1.5 %",
         f"{100 * worst_il:.2f} %")
+    earth = units.EARTH_MASS_PARAMETER_SI / units.SOLAR_MASS_PARAMETER_SI
     row("Schwarzschild radius of Sun / Earth", "common values 2.95 km / 8.87 mm", "5e-3 abs",
         f"{float(sm.exterior.schwarzschild_radius(1.0)):.4f} km / "
-        f"{float(sm.exterior.schwarzschild_radius(units.EARTH_MASS_PARAMETER_SI / units.SOLAR_MASS_PARAMETER_SI)) * 1e6:.3f} mm")
+        f"{float(sm.exterior.schwarzschild_radius(earth)) * 1e6:.3f} mm")
 
 
 if __name__ == "__main__":

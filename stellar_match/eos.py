@@ -237,7 +237,9 @@ class PiecewisePolytrope(EquationOfState):
     @staticmethod
     def slope_from_coefficients(p, eps, coeff):
         # c_s^2 = Gamma p / (eps + p) inside a piece, so d eps/dh = (eps + p)^2 / (Gamma p);
-        # at the surface itself (p = 0) the limit is 0 for Gamma < 2, the usual crust case.
+        # at the surface itself (p = 0) the limit is 0 for Gamma < 2, the usual crust case; for
+        # Gamma > 2 it diverges, which the solver avoids by never evaluating at h = 0 exactly
+        # (structure.SURFACE_GUARD).
         with np.errstate(divide="ignore", invalid="ignore"):
             slope = (eps + p) ** 2 / (coeff["gamma"] * p)
         return np.where(p > 0, slope, 0.0)
@@ -445,7 +447,7 @@ def read_piecewise_polytrope(
     if not (sly_crust_dividing_densities()[-1] < rho_join < rho1):
         raise InputError(
             f"log10_p1 = {log10_p1} with Gamma_1 = {g1} meets the SLy crust at "
-            f"{rho_join:.3e} g/cm^3, outside ({SLY_CRUST[2][2]:.3e}, {rho1:.3e})",
+            f"{rho_join:.3e} g/cm^3, outside ({sly_crust_dividing_densities()[-1]:.3e}, {rho1:.3e})",
             key="log10_p1",
         )
     lower = np.array([0.0, *sly_crust_dividing_densities(), rho_join, rho1, rho2])

@@ -1,13 +1,22 @@
 """Analysis of a one-parameter sequence of stars: maximum mass and stability.
 
 Along a sequence of equilibria parametrised by the central density, the
-fundamental radial mode changes stability at every extremum of M(rho_c)
-(the turning-point criterion; Harrison, Thorne, Wakano & Wheeler 1965,
+stability of one radial mode changes at every extremum of M(rho_c) (the
+turning-point criterion; Harrison, Thorne, Wakano & Wheeler 1965,
 "Gravitation Theory and Gravitational Collapse"; Friedman, Ipser & Sorkin
-1988, ApJ 325, 722).  A star is flagged stable when dM/d rho_c > 0 and it lies
-at or below the first maximum; stars past the first maximum are flagged
-unstable even on a later rising branch (a conservative choice; third-family
-"twin" branches are not recognised).
+1988, ApJ 325, 722).  Which way it changes follows the rule of Bardeen,
+Thorne & Meltzer (1966, ApJ 145, 505): where the M(R) curve bends
+counter-clockwise (R on the horizontal axis) one more mode becomes unstable,
+where it bends clockwise one mode regains stability.  At an extremum the
+bend is the sign of R' M'' (' = d/d ln rho_c).
+
+The lowest-density star of the sweep is taken as stable when dM/d rho_c > 0
+there and as having one unstable mode otherwise; a star is flagged stable
+when no mode is unstable.  For the usual neutron-star sweep this is exactly
+"dM/d rho_c > 0 up to the maximum"; it also flags correctly a sweep that
+starts on the white-dwarf branch (stable, unstable past its maximum, stable
+again past the minimum mass) or contains a third-family (twin-star) branch.
+The reported maximum mass is the largest maximum that ends a stable branch.
 
 The sequence is parametrised here by the central log-enthalpy h_c, which
 increases with the central density and pressure for every valid EOS, so the
@@ -35,9 +44,11 @@ class SequenceAnalysis:
         Turning-point stability of each input star, in input order.
     mass_slope : ndarray
         dM/d ln h_c of each star, from finite differences along the sequence
-        (of two extra solves for a single star).
+        (of extra solves when the sweep has fewer than five stars).
+    unstable_modes : ndarray of int
+        Number of unstable radial modes of each star (0 = stable).
     max_enthalpy : float
-        Central log-enthalpy of the first maximum of M, NaN if none.
+        Central log-enthalpy of the maximum-mass star, NaN if none.
     max_mass, max_mass_radius : float
         M and R (km) of the maximum-mass star, NaN if none.
     status : str
@@ -46,6 +57,7 @@ class SequenceAnalysis:
 
     stable: np.ndarray
     mass_slope: np.ndarray
+    unstable_modes: np.ndarray
     max_enthalpy: float
     max_mass: float
     max_mass_radius: float
@@ -53,37 +65,44 @@ class SequenceAnalysis:
 
 
 SolveFn = Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]
+#: Sweeps with fewer stars get their slopes from two extra solves per star.
+FEW_STARS = 5
 
 
-def _slopes(x: np.ndarray, mass: np.ndarray, solve: SolveFn) -> np.ndarray:
-    """dM/dx at the samples: second-order finite differences of the samples.
+def _slopes(x: np.ndarray, mass: np.ndarray, radius: np.ndarray, solve: SolveFn, x_limit: float):
+    """dM/dx and dR/dx at the samples.
 
-    Finite differences, not a spline: near the minimum mass the sequence
-    changes by orders of magnitude between samples and a spline overshoots
-    into spurious sign changes.  Single stars get two extra solves.
+    Finite differences of the samples, not a spline: near the minimum mass
+    the sequence changes by orders of magnitude between samples and a spline
+    overshoots into spurious sign changes.  Short sweeps use +-1e-4 solves.
     """
-    if x.size >= 3:
-        return np.gradient(mass, x)
-    if x.size == 2:
-        return np.full(2, (mass[1] - mass[0]) / (x[1] - x[0]))
+    if x.size >= FEW_STARS:
+        return np.gradient(mass, x), np.gradient(radius, x)
     dx = 1e-4
-    m, _ = solve(np.exp(np.concatenate([x - dx, x + dx])))
-    return (m[x.size:] - m[: x.size]) / (2 * dx)
+    lo, hi = x - dx, np.minimum(x + dx, x_limit)  # one-sided at the top of a table
+    m, r = solve(np.exp(np.concatenate([lo, hi])))
+    n = x.size
+    return (m[n:] - m[:n]) / (hi - lo), (r[n:] - r[:n]) / (hi - lo)
 
 
-def _refine_maximum(x_guess: float, width: float, solve: SolveFn, rtol: float) -> float:
+def _refine_maximum(x_guess: float, width: float, solve: SolveFn, rtol: float, x_limit: float) -> float:
     """Vertex of M(x) by repeated local quadratic fits to fresh solves.
 
     Each pass solves five stars across +-width around the estimate and takes
     the root of the fitted dM/dx; the width shrinks 8-fold per pass.  Near
     the maximum M - M_max ~ (x - x*)^2, so a location error dx costs a
     relative mass error of order dx^2: we stop once the fitted parabola
-    says the mass is settled to ``rtol * 1e-3``.
+    says the mass is settled to ``rtol * 1e-3``.  Returns NaN if the fresh
+    solves do not show a maximum.
     """
     x = x_guess
     for _ in range(8):
-        xs = x + width * np.linspace(-1.0, 1.0, 5)
+        xs = np.minimum(x + width * np.linspace(-1.0, 1.0, 5), x_limit)
+        if np.unique(xs).size < 3:
+            return float("nan")
         m, _ = solve(np.exp(xs))
+        if not np.all(np.isfinite(m)):
+            return float("nan")
         c2, c1, c0 = np.polyfit(xs - x, m, 2)
         if c2 >= 0:  # not a maximum on this scale: widen the view instead
             width *= 2.0
@@ -93,79 +112,105 @@ def _refine_maximum(x_guess: float, width: float, solve: SolveFn, rtol: float) -
         settled = abs(c2) * (width / 8.0) ** 2 < rtol * 1e-3 * abs(c0)
         width /= 8.0
         if settled and abs(shift) < width * 8.0:
-            break
-    return x
+            return x
+    return x if width < 1e-3 else float("nan")
 
 
 def analyse_sequence(
-    central_enthalpy, mass, solve: SolveFn, *, rtol: float = 1e-6
+    central_enthalpy, mass, radius, solve: SolveFn, *, rtol: float = 1e-6, h_limit: float = np.inf
 ) -> SequenceAnalysis:
-    """Locate the first maximum of M(h_c) and flag turning-point stability.
+    """Locate the maximum of M(h_c) and flag turning-point stability.
 
     Parameters
     ----------
     central_enthalpy : array_like, shape (n,)
         Central log-enthalpies of the sequence, any order.
-    mass : array_like, shape (n,)
-        Gravitational masses (any consistent unit).
+    mass, radius : array_like, shape (n,)
+        Gravitational masses and radii (any consistent units).
     solve : callable
         ``solve(h_c) -> (mass, radius)`` for new central enthalpies; used to
         refine the maximum by fresh solves rather than by interpolation.
     rtol : float
         Relative accuracy goal for the maximum mass.
+    h_limit : float
+        Largest central log-enthalpy ``solve`` accepts (the top of a table).
 
     Returns
     -------
     SequenceAnalysis
     """
+    x_limit = float(np.log(h_limit))
     h = np.asarray(central_enthalpy, dtype=float)
-    m = np.asarray(mass, dtype=float)
     order = np.argsort(h)
-    hs, ms = h[order], m[order]
+    hs = h[order]
     keep = np.concatenate([[True], np.diff(hs) > 0])
     x = np.log(hs[keep])
-    mu = ms[keep]
+    mu = np.asarray(mass, dtype=float)[order][keep]
+    ru = np.asarray(radius, dtype=float)[order][keep]
     nan = float("nan")
     if x.size == 0:
-        return SequenceAnalysis(np.zeros(0, bool), np.zeros(0), nan, nan, nan, "empty sweep")
+        return SequenceAnalysis(np.zeros(0, bool), np.zeros(0), np.zeros(0, int), nan, nan, nan, "empty sweep")
 
-    slope_u = _slopes(x, mu, solve)
-    # first interior sample that is a discrete local maximum
-    peaks = np.flatnonzero((mu[1:-1] > mu[:-2]) & (mu[1:-1] >= mu[2:])) + 1
+    slope, r_slope = _slopes(x, mu, ru, solve, x_limit)
+    rising = slope > 0
+    # extrema lie between consecutive samples whose slopes differ in sign
+    turns = np.flatnonzero(rising[:-1] != rising[1:])
+    modes = np.empty(x.size, dtype=int)
+    n = 0 if rising[0] else 1
+    start = 0
+    ends_of_stable = []  # sample index at each maximum that ends a stable branch
+    for i in turns:
+        modes[start : i + 1] = n
+        peak = bool(rising[i])  # + then -: a maximum
+        j = i if peak == (mu[i] >= mu[i + 1]) else i + 1  # the sample nearer the extremum
+        r_prime = r_slope[j]
+        bend = np.sign(r_prime) * (-1.0 if peak else 1.0)  # sign(R' M'')
+        if peak and n == 0 and bend > 0:
+            ends_of_stable.append(j)
+        n = max(n + (1 if bend > 0 else -1), 0)
+        start = i + 1
+    modes[start:] = n
+    stable_u = (modes == 0) & rising
+
     x_max = nan
     status = "found"
-    if peaks.size:
-        i = int(peaks[0])
-        # vertex of the parabola through the three samples as the first guess
-        c2, c1, _ = np.polyfit(x[i - 1 : i + 2] - x[i], mu[i - 1 : i + 2], 2)
-        guess = x[i] + float(np.clip(-c1 / (2 * c2), x[i - 1] - x[i], x[i + 1] - x[i]))
-        width = max(0.5 * (x[i + 1] - x[i - 1]), 1e-6)
-        x_max = _refine_maximum(guess, width, solve, rtol)
-    elif np.all(slope_u > 0):
+    if ends_of_stable:
+        j = max(ends_of_stable, key=lambda k: mu[k])
+        lo, hi = max(j - 1, 0), min(j + 1, x.size - 1)
+        guess = x[j]
+        if hi - lo == 2:
+            c2, c1, _ = np.polyfit(x[lo : hi + 1] - x[j], mu[lo : hi + 1], 2)
+            if c2 < 0:
+                guess = x[j] + float(np.clip(-c1 / (2 * c2), x[lo] - x[j], x[hi] - x[j]))
+        width = max(0.5 * (x[hi] - x[lo]), 1e-4)
+        x_max = _refine_maximum(guess, width, solve, rtol, x_limit)
+        if not np.isfinite(x_max):
+            x_max, status = float(x[j]), "found (largest sample; refinement did not converge)"
+    elif np.all(rising):
         status = "not reached: mass still increasing at the highest central density"
-    elif np.all(slope_u <= 0):
+    elif not np.any(rising):
         status = "not in range: mass decreasing over the whole sweep"
     else:
-        status = "not in range: no maximum between sweep points"
+        status = "not in range: no stable branch ends inside the sweep"
 
-    # slopes back in input order (duplicates share their first copy's slope)
-    slope_sorted = np.interp(np.log(hs), x, slope_u)
-    slope = np.empty_like(slope_sorted)
-    slope[order] = slope_sorted
-    limit = x_max if np.isfinite(x_max) else np.inf
-    stable = (slope > 0) & (np.log(h) <= limit)
+    def back(values_sorted_unique):  # to input order (duplicates share their first copy)
+        full = values_sorted_unique[np.searchsorted(x, np.log(hs))]
+        out = np.empty_like(full)
+        out[order] = full
+        return out
 
     if np.isfinite(x_max):
         m_max, r_max = solve(np.array([np.exp(x_max)]))
         max_mass, max_radius = float(m_max[0]), float(r_max[0])
-        # a sampled star can beat the refined one only through solver noise
-        if max_mass < mu.max() * (1 - 1e-9) and mu.argmax() not in (0, mu.size - 1):
-            status = "found (refinement did not improve on the samples)"
+        # samples past the refined maximum on the same branch are unstable
+        past = (x > x_max) & (modes == 0) & (x <= x[min(j + 1, x.size - 1)])
+        stable_u = stable_u & ~past
     else:
         max_mass = max_radius = nan
     return SequenceAnalysis(
-        stable=stable,
-        mass_slope=slope,
+        stable=back(stable_u),
+        mass_slope=back(slope),
+        unstable_modes=back(modes),
         max_enthalpy=float(np.exp(x_max)) if np.isfinite(x_max) else nan,
         max_mass=max_mass,
         max_mass_radius=max_radius,

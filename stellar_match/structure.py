@@ -517,7 +517,7 @@ def solve_interiors(
     if np.any(~np.isfinite(h_c) | (h_c <= 0)) or np.any(h_c > eos.h_max * (1 + 1e-12)):
         raise ValueError("central enthalpies must lie in (0, eos.h_max]")
     p_c, eps_c, rho_c = eos.state(h_c)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):  # puffed stars are redone
         y = _integrate(eos, h_c, control, response, ENVELOPE_FRACTION)
         puffed = np.flatnonzero(~(y[1] * y[0] >= LOW_COMPACTNESS))  # m/r = v u; also NaN
         if puffed.size:

@@ -190,7 +190,7 @@ def sweep_eos(
     h_all = central_enthalpy(eos, quantity, values)
     per_star = {k: v for k, v in STAR_DATASETS.items()}
     sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, per_star)
-    kept = {k: np.empty(h_all.size) for k in ("mass", "central_density", "central_pressure")}
+    kept = {k: np.empty(h_all.size) for k in ("mass", "radius", "central_density", "central_pressure")}
     for start in range(0, h_all.size, chunk_size):
         h = h_all[start : start + chunk_size]
         cols = _columns_from_interiors(eos, solve_interiors(eos, h, control=control))
@@ -204,8 +204,16 @@ def sweep_eos(
         r = solve_interiors(eos, hc, control=control)
         return r.mass, r.radius
 
-    analysis = analyse_sequence(h_all, units.mass_to_geometric(kept["mass"]), refine)
-    h_top = analysis.max_enthalpy if np.isfinite(analysis.max_enthalpy) else float(h_all.max())
+    analysis = analyse_sequence(h_all, units.mass_to_geometric(kept["mass"]), kept["radius"], refine,
+                                h_limit=eos.h_max)
+    # causality is judged up to the maximum-mass star: the top of the sweep when
+    # the maximum is not reached, its bottom when the whole sweep is past it
+    if np.isfinite(analysis.max_enthalpy):
+        h_top = analysis.max_enthalpy
+    elif analysis.status.startswith("not in range: mass decreasing"):
+        h_top = float(h_all.min())
+    else:
+        h_top = float(h_all.max())
     cs2 = eos.max_sound_speed_squared(h_top)
     if np.isfinite(analysis.max_enthalpy):
         _, _, rho_max = eos.state(np.array([analysis.max_enthalpy]))

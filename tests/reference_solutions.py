@@ -74,7 +74,11 @@ def tov_in_radius(eos, h_c: float, rtol: float = 1e-11):
 
 
 def hinderer_k2(C: float, y: float) -> float:
-    """Closed form of k2, Hinderer (2008, ApJ 677, 1216, erratum 2009), eq. 23."""
+    """Closed form of k2, Hinderer (2008, ApJ 677, 1216, erratum 2009), eq. 23.
+
+    Its terms cancel through O(C^4): below C ~ 0.05 it loses too many digits to be a reference.
+    """
+    assert C >= 0.05, "closed form too cancellation-prone below C = 0.05"
     num = 8 / 5 * C**5 * (1 - 2 * C) ** 2 * (2 + 2 * C * (y - 1) - y)
     den = (2 * C * (6 - 3 * y + 3 * C * (5 * y - 8))
            + 4 * C**3 * (13 - 11 * y + C * (3 * y - 2) + 2 * C**2 * (1 + y))

@@ -85,3 +85,27 @@ def test_single_star_gets_a_stability_flag():
     low = sm.sweep_eos(eos, "central_density", [1e15])
     high = sm.sweep_eos(eos, "central_density", [4e15])
     assert low.stable[0] and not high.stable[0]
+
+
+def test_sweep_through_the_white_dwarf_branch():
+    # Bardeen, Thorne & Meltzer 1966 (ApJ 145, 505): stability is lost at the white-dwarf
+    # maximum (counter-clockwise bend), regained at the minimum mass (clockwise) and lost
+    # again at the neutron-star maximum; M_max is the neutron-star one (Read et al. 2009, SLy).
+    eos = sm.read_piecewise_polytrope("sly", 34.384, [3.005, 2.988, 2.851])
+    seq = sm.sweep_eos(eos, "central_density", np.geomspace(1e6, 3e15, 80))
+    rho, st = seq["central_density"], seq.stable
+    assert seq.summary["max_mass"] == pytest.approx(2.049, rel=0.015)
+    assert st[rho < 1e8].all()                      # white-dwarf-like branch, rising
+    assert not st[(rho > 3e8) & (rho < 1.5e14)].any()  # between the two extrema
+    assert st[(rho > 3e14) & (rho < 1.9e15)].all()  # the neutron-star branch
+    assert not st[rho > 2.1e15].any()
+
+
+def test_two_star_sweeps_use_local_slopes():
+    # With two stars the slope between them says nothing about each star: each gets
+    # its own dM/d rho_c from fresh solves (turning-point criterion as above).
+    eos = sm.read_piecewise_polytrope("sly", 34.384, [3.005, 2.988, 2.851])
+    seq = sm.sweep_eos(eos, "central_density", [1e15, 4e15])
+    assert list(seq.stable) == [True, False]
+    assert seq.summary["max_mass_status"] == "found"
+    assert seq.summary["causal"]  # judged up to the maximum at 2.0e15, not up to 4e15

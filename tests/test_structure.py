@@ -131,3 +131,17 @@ def test_central_series_leading_terms():
     assert u == pytest.approx(3e-12 / (2 * np.pi * 1.3), rel=1e-9)
     assert v == pytest.approx(4 * np.pi / 3, rel=1e-9)
     assert w == pytest.approx(4 * np.pi / 3 * 0.9, rel=1e-9)
+
+
+@pytest.mark.parametrize("rho_c", [1e11, 1e14, 1.7e14, 2e14, 3e14])
+def test_low_density_and_puffed_up_stars(rho_c):
+    # Below the minimum mass (rho_c ~ 2e14 g/cm^3 for SLy) the stars are puffed up, with
+    # radii of hundreds to thousands of km mostly in the low-density envelope.  Same
+    # independent reference as above (solve_ivp DOP853, rtol 1e-11); same 1e-6.
+    eos = sm.read_piecewise_polytrope("sly", **SLY)
+    h_c = float(_h(eos, [rho_c])[0])
+    R, M, Mb = tov_in_enthalpy(eos, h_c)
+    star = solve_interiors(eos, [h_c])
+    assert star.mass[0] == pytest.approx(M, rel=1e-6)
+    assert star.radius[0] == pytest.approx(R, rel=1e-6)
+    assert star.baryon_mass[0] == pytest.approx(Mb, rel=1e-6)
