@@ -7,6 +7,7 @@ interrupt (Ctrl-C) keeps finished work in ``<out>.partial`` and exits 130.
 from __future__ import annotations
 
 import argparse
+import os
 import shutil
 import sys
 from importlib import resources
@@ -80,16 +81,22 @@ def summary_table(run) -> str:
     return "\n".join(lines + notes)
 
 
-def _run_sweep(config_path: Path, out: Path | None, force: bool) -> Path:
+def _run_sweep(config_path: Path, out: Path | None, force: bool, *, resume: bool = False,
+               workers: int = 1, scheduler: str | None = None) -> Path:
     from .config import load_config
     from .sweep import run_config
 
     config = load_config(config_path)
     out = out if out is not None else config_path.with_suffix(".h5")
-    total = config.axis.values.size * len(config.eos)
-    bar = _LazyBar(total, "sweep")
+    total = config.axis.values.size * (len(config.eos) + sum(e.size for e in config.ensembles))
+    members = sum(e.size for e in config.ensembles)
+    bar = _LazyBar(total, "sweep", members)
     try:
-        path = run_config(config, out, force=force, progress=bar.update)
+        path = run_config(config, out, force=force, resume=resume, workers=workers, scheduler=scheduler,
+                          progress=bar.update)
+    except KeyboardInterrupt:
+        bar.close()
+        raise KeyboardInterrupt(f"{out}.parts") from None
     finally:
         bar.close()
     return path
@@ -97,23 +104,39 @@ def _run_sweep(config_path: Path, out: Path | None, force: bool) -> Path:
 
 class _LazyBar:
     """A progress bar that appears with the first finished chunk, so that input
-    errors found while building the EOS print as one clean line."""
+    errors found while building the EOS print as one clean line.  It shows
+    stars/s, members/s (ensembles) and the time left."""
 
-    def __init__(self, total: int, desc: str) -> None:
-        self.total, self.desc, self.bar = total, desc, None
+    def __init__(self, total: int, desc: str, members: int = 0) -> None:
+        self.total, self.desc, self.members, self.bar = total, desc, members, None
+        self.done_members = 0
+        self.t0 = None
 
-    def update(self, n: int) -> None:
+    def update(self, stars: int, members: int = 0) -> None:
+        import time
+
         if self.bar is None:
             self.bar = _progress_bar(self.total, self.desc)
-        self.bar.update(n)
+            self.t0 = time.perf_counter()
+        self.bar.update(stars)
+        if self.members:
+            self.done_members += members
+            rate = self.done_members / max(time.perf_counter() - self.t0, 1e-9)
+            self.bar.set_postfix_str(f"{self.done_members}/{self.members} members, {rate:.1f} members/s",
+                                     refresh=False)
 
     def close(self) -> None:
         if self.bar is not None:
             self.bar.close()
+            self.bar = None
 
 
 def cmd_sweep(args) -> int:
-    path = _run_sweep(Path(args.config), Path(args.out) if args.out else None, args.force)
+    if args.workers is not None and args.workers < 1:
+        raise InputError(f"--workers needs a whole number >= 1, got {args.workers}", key="--workers")
+    workers = args.workers if args.workers is not None else (os.cpu_count() or 1)
+    path = _run_sweep(Path(args.config), Path(args.out) if args.out else None, args.force,
+                      resume=args.resume, workers=workers, scheduler=args.scheduler)
     print(f"wrote {path}")
     print(summary_table(read_run(path)))
     return 0
@@ -227,7 +250,13 @@ def build_parser() -> argparse.ArgumentParser:
     s = sub.add_parser("sweep", help="run a sweep config into an HDF5 run file")
     s.add_argument("config", help="TOML sweep config")
     s.add_argument("-o", "--out", help="run file to write (default: CONFIG with .h5)")
-    s.add_argument("--force", action="store_true", help="overwrite an existing run file")
+    s.add_argument("--force", action="store_true", help="overwrite an existing run file (and unfinished parts)")
+    s.add_argument("--resume", action="store_true",
+                   help="continue an interrupted run from OUT.h5.parts, computing only missing chunks")
+    s.add_argument("--workers", type=int, metavar="N",
+                   help="local worker processes (default: the number of cores)")
+    s.add_argument("--scheduler", metavar="ADDRESS",
+                   help="send chunks to an existing Dask scheduler, e.g. tcp://host:8786")
     s.set_defaults(func=cmd_sweep)
 
     s = sub.add_parser("summary", help="print max mass, R and z at 1.4 Msun, causality per EOS")
@@ -269,8 +298,9 @@ def main(argv: list[str] | None = None) -> int:
     except InputError as exc:
         print(f"{PROG}: error: {exc.one_line()}", file=sys.stderr)
         return 2
-    except KeyboardInterrupt:
-        print(f"{PROG}: interrupted; finished stars are kept in the .partial file", file=sys.stderr)
+    except KeyboardInterrupt as exc:
+        where = f" in {exc.args[0]}" if exc.args else ""
+        print(f"{PROG}: interrupted; finished chunks are kept{where}: rerun with --resume", file=sys.stderr)
         return 130
 
 

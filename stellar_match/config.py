@@ -96,11 +96,14 @@ class SolverOptions:
         Multiplies every step length of the default step control; 0.5 halves
         the steps (about 30x smaller errors, twice the time).
     chunk_size : int
-        Stars solved and written per chunk.
+        Stars of an ``[[eos]]`` block solved and saved per chunk.
+    member_chunk_size : int
+        Ensemble members solved together and saved per chunk.
     """
 
     step_scale: float = 1.0
     chunk_size: int = 2048
+    member_chunk_size: int = 64
 
 
 @dataclass
@@ -114,6 +117,7 @@ class SweepConfig:
     solver: SolverOptions = field(default_factory=SolverOptions)
     target_masses: list[float] = field(default_factory=list)
     binaries: list[tuple[float, float]] = field(default_factory=list)
+    ensembles: list = field(default_factory=list)
 
 
 def load_config(path: str | Path) -> SweepConfig:
@@ -254,7 +258,7 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"not valid TOML ({exc})", source=source) from None
-    _no_unknown(data, {"sweep", "eos", "solver"}, source, "")
+    _no_unknown(data, {"sweep", "eos", "solver", "ensemble"}, source, "")
     if "sweep" not in data:
         raise _fail(source, "sweep", "missing [sweep] table")
     sweep = _table(data["sweep"], source, "sweep")
@@ -279,19 +283,33 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
     solver = SolverOptions()
     if "solver" in data:
         st = _table(data["solver"], source, "solver")
-        _no_unknown(st, {"step_scale", "chunk_size"}, source, "solver")
+        _no_unknown(st, {"step_scale", "chunk_size", "member_chunk_size"}, source, "solver")
         scale = _number(st.get("step_scale", 1.0), source, "solver.step_scale", positive=True)
         if scale > 4:
             raise _fail(source, "solver.step_scale", f"{scale:g} is too coarse to trust (use <= 4)")
-        chunk = st.get("chunk_size", SolverOptions.chunk_size)
-        if isinstance(chunk, bool) or not isinstance(chunk, int) or chunk < 1:
-            raise _fail(source, "solver.chunk_size", f"needs a whole number >= 1, got {chunk!r}")
-        solver = SolverOptions(step_scale=scale, chunk_size=chunk)
+        sizes = {}
+        for k in ("chunk_size", "member_chunk_size"):
+            v = st.get(k, getattr(SolverOptions, k))
+            if isinstance(v, bool) or not isinstance(v, int) or v < 1:
+                raise _fail(source, f"solver.{k}", f"needs a whole number >= 1, got {v!r}")
+            sizes[k] = v
+        solver = SolverOptions(step_scale=scale, **sizes)
 
-    blocks = data.get("eos")
-    if not isinstance(blocks, list) or not blocks:
-        raise _fail(source, "eos", "needs at least one [[eos]] block")
+    blocks = data.get("eos", [])
+    ens_blocks = data.get("ensemble", [])
+    if not isinstance(blocks, list) or not isinstance(ens_blocks, list) or not (blocks or ens_blocks):
+        raise _fail(source, "eos", "needs at least one [[eos]] or [[ensemble]] block")
     specs = [_eos_spec(i, b, source, base_dir) for i, b in enumerate(blocks)]
+    from .ensemble import parse_ensemble
+
+    ensembles = [parse_ensemble(i, b, source, base_dir) for i, b in enumerate(ens_blocks)]
+    if ensembles and axis.values.size < 5:
+        raise _fail(source, f"sweep.{axis.quantity}", "ensembles need at least 5 central values per member")
+    ens_names: dict[str, int] = {}
+    for e in ensembles:
+        if e.name in ens_names:
+            raise _fail(source, f"ensemble[{e.index}].name", f"duplicate name {e.name!r}")
+        ens_names[e.name] = e.index
     seen: dict[str, int] = {}
     for s in specs:
         if s.name in seen:
@@ -308,4 +326,5 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
         solver=solver,
         target_masses=targets,
         binaries=binaries,
+        ensembles=ensembles,
     )

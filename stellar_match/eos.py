@@ -671,3 +671,84 @@ def from_table(name: str, path: str | Path, columns: TableColumns) -> PiecewiseP
         "baryon_mass_g": units.NEUTRON_MASS_G,
     }
     return eos
+
+
+class EOSStack:
+    """Several piecewise polytropes with the same number of pieces, solved as one batch.
+
+    Ensembles solve the stars of many members together: every star carries
+    the index of its member, and the per-piece coefficients of all members
+    sit in one flat table.  :meth:`bind` returns the object the solver uses.
+
+    Parameters
+    ----------
+    members : list of PiecewisePolytrope
+        The members; all must have the same number of pieces.
+    """
+
+    def __init__(self, members: list[PiecewisePolytrope]) -> None:
+        if not members:
+            raise ValueError("an EOS stack needs at least one member")
+        pieces = {m.gamma.size for m in members}
+        if len(pieces) != 1:
+            raise ValueError("stacked EOS must all have the same number of pieces")
+        self.members = members
+        self.n_pieces = pieces.pop()
+        self.breakpoints = np.array([m.breakpoints_h for m in members]).reshape(len(members), self.n_pieces - 1)
+        self.coeff = {k: np.concatenate([m.piece_arrays()[k] for m in members]) for k in members[0].piece_arrays()}
+
+    def bind(self, member) -> BoundEOSStack:
+        """The stack seen by a batch whose star j belongs to member ``member[j]``."""
+        return BoundEOSStack(self, np.asarray(member, dtype=np.intp))
+
+
+class BoundEOSStack:
+    """An :class:`EOSStack` with a member index per star (the solver's EOS for ensembles).
+
+    Methods take arrays whose last axis runs over the batch's stars.
+    """
+
+    surface_energy_density = 0.0
+    h_max = np.inf
+    state_from_coefficients = staticmethod(PiecewisePolytrope.state_from_coefficients)
+    slope_from_coefficients = staticmethod(PiecewisePolytrope.slope_from_coefficients)
+
+    def __init__(self, stack: EOSStack, member: np.ndarray) -> None:
+        self.stack, self.member = stack, member
+        self.offset = member * stack.n_pieces
+        self.star_breakpoints = stack.breakpoints[member]  # (n, P - 1)
+
+    def select(self, stars) -> BoundEOSStack:
+        """The same stack bound to a subset of this batch's stars."""
+        return BoundEOSStack(self.stack, self.member[stars])
+
+    def piece_index(self, h):
+        h = np.asarray(h, dtype=float)
+        local = (self.star_breakpoints < h[..., None]).sum(axis=-1)
+        return self.offset + local
+
+    def piece_arrays(self):
+        return self.stack.coeff
+
+    def _per_star(self, fn_name: str, values):
+        values = np.asarray(values, dtype=float)
+        out = np.empty(values.shape)
+        for m in np.unique(self.member):
+            sel = self.member == m
+            out[..., sel] = getattr(self.stack.members[m], fn_name)(values[..., sel])
+        return out
+
+    def state(self, h):
+        h = np.asarray(h, dtype=float)
+        idx = self.piece_index(h)
+        return self.state_from_coefficients(h, {k: v[idx] for k, v in self.stack.coeff.items()})
+
+    def energy_density_slope(self, h):
+        h = np.asarray(h, dtype=float)
+        idx = self.piece_index(h)
+        coeff = {k: v[idx] for k, v in self.stack.coeff.items()}
+        p, eps, _ = self.state_from_coefficients(h, coeff)
+        return self.slope_from_coefficients(p, eps, coeff)
+
+    def enthalpy_of_density(self, rho):
+        return self._per_star("enthalpy_of_density", rho)

@@ -181,6 +181,46 @@ class RunFileWriter:
                 d.attrs["unit"] = unit
         self._file.flush()
 
+    def write_ensemble(self, spec, axis, parts) -> None:
+        """Write ``/ensemble/<name>`` from (task, arrays) parts in member order.
+
+        2-D datasets (members x stars) are created full size and filled part
+        by part, so memory does not grow with the number of members.
+        """
+        from .ensemble import MEMBER_SUMMARIES, STATUS_MEANING
+
+        g = self._file.require_group("ensemble").create_group(spec.name, track_order=True)
+        g.attrs["kind"] = spec.kind
+        g.attrs["origin"] = json.dumps(spec.origin)
+        g.attrs["status_meaning"] = json.dumps({str(k): v for k, v in STATUS_MEANING.items()})
+        g.attrs["sweep_quantity"] = axis.quantity
+        members = g.create_group("members")
+        for j, name in enumerate(spec.parameter_names):
+            members.create_dataset(name, data=spec.parameters[:, j])
+        ax = g.create_dataset("sweep_values", data=axis.values)
+        ax.attrs["unit"] = axis.unit
+        ax.attrs["quantity"] = axis.quantity
+        n, m = spec.size, axis.values.size
+        chunk_rows = max(1, min(n, 2**16 // max(m, 1)))
+        for col, (unit, meaning) in STAR_DATASETS.items():
+            dtype = bool if col == "stable" else float
+            d = g.create_dataset(col, shape=(n, m), dtype=dtype, chunks=(chunk_rows, m))
+            d.attrs["unit"] = unit
+            d.attrs["description"] = meaning
+        for col, unit in MEMBER_SUMMARIES.items():
+            dtype = {"causal": bool, "status": np.int8}.get(col, float)
+            d = g.create_dataset(col, shape=(n,), dtype=dtype)
+            d.attrs["unit"] = unit
+        for task, arrays in parts:
+            for col in (*STAR_DATASETS, *MEMBER_SUMMARIES):
+                g[col][task.start : task.stop] = arrays[col]
+            self._file.flush()
+
+    def discard(self) -> None:
+        """Close and delete the partial file (the caller keeps its parts elsewhere)."""
+        self.abort()
+        self.partial.unlink(missing_ok=True)
+
     def close(self) -> Path:
         """Close and move the completed file onto its final name."""
         self._file.close()
@@ -233,8 +273,9 @@ def read_run(path: str | Path) -> RunFile:
     """
     path = Path(path)
     if not path.exists():
-        partial = _partial_name(path)
-        hint = f" (an unfinished {partial.name} exists)" if partial.exists() else ""
+        parts = path.with_name(path.name + ".parts")
+        hint = (f" (an unfinished run is in {parts.name}: rerun the sweep with --resume)"
+                if parts.is_dir() else "")
         raise RunFileError(f"run file not found{hint}", source=str(path))
     try:
         f = h5py.File(path, "r")

@@ -78,6 +78,8 @@ def _slopes(x: np.ndarray, mass: np.ndarray, radius: np.ndarray, solve: SolveFn,
     """
     if x.size >= FEW_STARS:
         return np.gradient(mass, x), np.gradient(radius, x)
+    if solve is None:
+        raise ValueError(f"sequences of fewer than {FEW_STARS} stars need a solve function")
     dx = 1e-4
     lo, hi = x - dx, np.minimum(x + dx, x_limit)  # one-sided at the top of a table
     m, r = solve(np.exp(np.concatenate([lo, hi])))
@@ -127,9 +129,12 @@ def analyse_sequence(
         Central log-enthalpies of the sequence, any order.
     mass, radius : array_like, shape (n,)
         Gravitational masses and radii (any consistent units).
-    solve : callable
+    solve : callable or None
         ``solve(h_c) -> (mass, radius)`` for new central enthalpies; used to
         refine the maximum by fresh solves rather than by interpolation.
+        With None the maximum is the vertex of a parabola through the three
+        samples around it, and ``max_mass`` is NaN (for callers that refine
+        many sequences together).
     rtol : float
         Relative accuracy goal for the maximum mass.
     h_limit : float
@@ -183,9 +188,12 @@ def analyse_sequence(
             if c2 < 0:
                 guess = x[j] + float(np.clip(-c1 / (2 * c2), x[lo] - x[j], x[hi] - x[j]))
         width = max(0.5 * (x[hi] - x[lo]), 1e-4)
-        x_max = _refine_maximum(guess, width, solve, rtol, x_limit)
-        if not np.isfinite(x_max):
-            x_max, status = float(x[j]), "found (largest sample; refinement did not converge)"
+        if solve is None:  # the caller refines (ensembles refine all members at once)
+            x_max, status = guess, "found (vertex of the samples, not refined)"
+        else:
+            x_max = _refine_maximum(guess, width, solve, rtol, x_limit)
+            if not np.isfinite(x_max):
+                x_max, status = float(x[j]), "found (largest sample; refinement did not converge)"
     elif np.all(rising):
         status = "not reached: mass still increasing at the highest central density"
     elif not np.any(rising):
@@ -200,8 +208,11 @@ def analyse_sequence(
         return out
 
     if np.isfinite(x_max):
-        m_max, r_max = solve(np.array([np.exp(x_max)]))
-        max_mass, max_radius = float(m_max[0]), float(r_max[0])
+        if solve is None:
+            max_mass = max_radius = nan
+        else:
+            m_max, r_max = solve(np.array([np.exp(x_max)]))
+            max_mass, max_radius = float(m_max[0]), float(r_max[0])
         # samples past the refined maximum on the same branch are unstable
         past = (x > x_max) & (modes == 0) & (x <= x[min(j + 1, x.size - 1)])
         stable_u = stable_u & ~past

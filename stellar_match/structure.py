@@ -424,6 +424,29 @@ def eos_nodes(eos: EquationOfState, control: StepControl, h_top: float, rho_floo
     return np.unique(thin(h_nodes)), np.unique(thin(density)), breaks
 
 
+def _stacked_nodes(bound, control: StepControl, h_c: np.ndarray, rho_env: np.ndarray):
+    """Per-star node matrices (G, n) for a batch of an EOS stack (see eos.EOSStack)."""
+    per_member = {}
+    for m in np.unique(bound.member):
+        sel = bound.member == m
+        per_member[m] = eos_nodes(bound.stack.members[m], control, float(h_c[sel].max()),
+                                  float(rho_env[sel].min()))
+    out = []
+    for part in range(3):
+        width = max(per_member[m][part].size for m in per_member)
+        table = np.full((width, h_c.size), np.inf)  # inf never lies below a star's centre
+        for m, nodes in per_member.items():
+            sel = np.flatnonzero(bound.member == m)
+            table[: nodes[part].size, sel] = nodes[part][:, None]
+        out.append(table)
+    return tuple(out)
+
+
+def _column(nodes: np.ndarray) -> np.ndarray:
+    """Nodes as (G, 1) for one EOS or (G, n) per star."""
+    return nodes[:, None] if nodes.ndim == 1 else nodes
+
+
 def step_grid(
     always: np.ndarray,
     density: np.ndarray,
@@ -458,19 +481,20 @@ def step_grid(
     k = np.arange(int(n_geo.max(initial=0)) + 1)[:, None]
     x = np.minimum(start_offset[None, :] * (1.0 + growth) ** k, startup_end[None, :])
     top = (h_c - startup_end)[None, :]
-    use_always = always[:, None] < top
-    use_density = (density[:, None] < top) & (density[:, None] >= envelope_enthalpy[None, :])
+    always, density, breakpoints = _column(always), _column(density), _column(breakpoints)
+    use_always = always < top
+    use_density = (density < top) & (density >= envelope_enthalpy[None, :])
     # every breakpoint below the start is an edge, also inside the start-up region
-    use_breaks = breakpoints[:, None] < (h_c - start_offset)[None, :]
+    use_breaks = breakpoints < (h_c - start_offset)[None, :]
     # the envelope is graded geometrically towards h = 0: there 1/r, not r, is
     # nearly linear in h, and a puffed-up low-mass star keeps most of its radius there
     env = envelope_enthalpy[None, :] * ENVELOPE_GRADING ** np.arange(1, ENVELOPE_STEPS + 1)[:, None]
     env = np.where(env < top, env, 0.0)
     h = np.concatenate([
         h_c[None, :] - x,
-        np.where(use_always, always[:, None], 0.0),
-        np.where(use_density, density[:, None], 0.0),
-        np.where(use_breaks, breakpoints[:, None], 0.0),
+        np.where(use_always, always, 0.0),
+        np.where(use_density, density, 0.0),
+        np.where(use_breaks, breakpoints, 0.0),
         env,
         np.zeros((1, h_c.size)),
     ])
@@ -521,7 +545,8 @@ def solve_interiors(
         y = _integrate(eos, h_c, control, response, ENVELOPE_FRACTION)
         puffed = np.flatnonzero(~(y[1] * y[0] >= LOW_COMPACTNESS))  # m/r = v u; also NaN
         if puffed.size:
-            y[:, puffed] = _integrate(eos, h_c[puffed], control, response, REDO_ENVELOPE_FRACTION)
+            sub = eos.select(puffed) if hasattr(eos, "select") else eos
+            y[:, puffed] = _integrate(sub, h_c[puffed], control, response, REDO_ENVELOPE_FRACTION)
 
     u, v, w = y[:3]
     radius = np.sqrt(u)
@@ -569,7 +594,10 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> np.ndarray:
         h_env = eos.enthalpy_of_density(units.density_to_geometric(rho_env))
     except InputError:  # incompressible: no density axis
         h_env = np.zeros_like(h_c)
-    always, density, breaks = eos_nodes(eos, control, float(h_c.max()), float(rho_env.min()))
+    if hasattr(eos, "stack"):  # an ensemble batch: every member has its own nodes
+        always, density, breaks = _stacked_nodes(eos, control, h_c, rho_env)
+    else:
+        always, density, breaks = eos_nodes(eos, control, float(h_c.max()), float(rho_env.min()))
     edges = step_grid(always, density, breaks, h_c, x0, startup_end, h_env, control.startup_growth)
     h_from, h_to = edges[:-1], edges[1:]
     piece = eos.piece_index(0.5 * (h_from + h_to))

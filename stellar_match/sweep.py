@@ -18,7 +18,7 @@ import numpy as np
 from . import units
 from .config import SweepConfig, load_config
 from .eos import EquationOfState
-from .errors import ConfigError, InputError
+from .errors import ConfigError, InputError, RunFileError
 from .exterior import match_surface
 from .runfile import STAR_DATASETS, TARGET_DATASETS, RunFileWriter
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
@@ -188,17 +188,38 @@ def sweep_eos(
     memory = sink is None
     sink = MemorySink() if memory else sink
     h_all = central_enthalpy(eos, quantity, values)
-    per_star = {k: v for k, v in STAR_DATASETS.items()}
-    sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, per_star)
-    kept = {k: np.empty(h_all.size) for k in ("mass", "radius", "central_density", "central_pressure")}
-    for start in range(0, h_all.size, chunk_size):
-        h = h_all[start : start + chunk_size]
-        cols = _columns_from_interiors(eos, solve_interiors(eos, h, control=control))
+
+    def chunks():
+        for start in range(0, h_all.size, chunk_size):
+            h = h_all[start : start + chunk_size]
+            cols = _columns_from_interiors(eos, solve_interiors(eos, h, control=control))
+            if progress is not None:
+                progress(h.size)
+            yield cols
+
+    write_sequence(eos, h_all, chunks(), sink, control=control, target_masses=target_masses, binaries=binaries)
+    return sink.sequence(eos.name) if memory else None
+
+
+_KEPT = ("mass", "radius", "central_density", "central_pressure")
+
+
+def write_sequence(eos: EquationOfState, h_all: np.ndarray, chunks, sink, *, control: StepControl = DEFAULT_STEPS,
+                   target_masses=(), binaries=()) -> None:
+    """Hand an EOS's star chunks to ``sink``, then analyse and finish the sequence.
+
+    ``chunks`` yields the per-star columns in sweep order; only four columns
+    of the whole sequence are kept in memory for the analysis.
+    """
+    sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, dict(STAR_DATASETS))
+    kept = {k: np.empty(h_all.size) for k in _KEPT}
+    start = 0
+    for cols in chunks:
+        n = len(cols["mass"])
         for k, arr in kept.items():
-            arr[start : start + h.size] = cols[k]
-        sink.append(eos.name, cols)
-        if progress is not None:
-            progress(h.size)
+            arr[start : start + n] = cols[k]
+        start += n
+        sink.append(eos.name, {k: cols[k] for k in STAR_DATASETS if k != "stable"})
 
     def refine(hc):
         r = solve_interiors(eos, hc, control=control)
@@ -236,7 +257,6 @@ def sweep_eos(
         if len(binaries):
             groups["binaries"] = _binaries_group(eos, light, binaries, control)
     sink.finish_eos(eos.name, {"stable": analysis.stable}, summary, groups)
-    return sink.sequence(eos.name) if memory else None
 
 
 def _why_missing(seq: EOSSequence, mass: float) -> str:
@@ -294,9 +314,12 @@ def run_config(
     out: str | Path | None = None,
     *,
     force: bool = False,
-    progress: ProgressFn | None = None,
+    resume: bool = False,
+    workers: int = 1,
+    scheduler: str | None = None,
+    progress: Callable[[int, int], None] | None = None,
 ) -> Path:
-    """Run every EOS of a config and write one HDF5 run file.
+    """Run every EOS and ensemble of a config and write one HDF5 run file.
 
     Parameters
     ----------
@@ -305,9 +328,17 @@ def run_config(
     out : path, optional
         Run file; default: the config's name with ``.h5`` beside it.
     force : bool
-        Overwrite an existing run file.
+        Overwrite an existing run file and discard unfinished parts.
+    resume : bool
+        Continue an interrupted run from its ``<out>.parts`` folder,
+        computing only the missing chunks.
+    workers : int
+        Local worker processes (1: in this process).
+    scheduler : str, optional
+        Address of an existing Dask distributed scheduler to send the chunk
+        tasks to instead of local workers.
     progress : callable, optional
-        Called with the number of stars finished after every chunk.
+        Called as ``progress(stars, members)`` after every finished chunk.
 
     Returns
     -------
@@ -317,30 +348,69 @@ def run_config(
     Notes
     -----
     Every EOS is built and checked against the sweep range before any star
-    is solved, so a bad config fails at once.  On an exception (including
-    KeyboardInterrupt) the finished part stays in ``<out>.partial``.
+    is solved, so a bad config fails at once.  Chunk boundaries come from the
+    config only, so the run file is the same, dataset by dataset and bit for
+    bit, for any number of workers, on Dask, and after a resume.
     """
+    from . import __version__
+    from .scheduling import PartStore, execute, plan_tasks, task_stars
+
     if not isinstance(config, SweepConfig):
         config = load_config(config)
     if out is None:
         if config.path is None:
             raise InputError("give an output path for a config that has no file")
         out = config.path.with_suffix(".h5")
+    out = Path(out)
     built = _build_all(config)
+    if out.is_dir():
+        raise RunFileError("is a folder; give a file name for the run file", source=str(out))
+    if out.exists() and not force:
+        raise RunFileError("exists already; pass --force to overwrite it", source=str(out))
+    store = PartStore(out, config.text, __version__)
+    if store.exists():
+        if force:
+            store.remove()
+        elif resume:
+            store.check_resumable()
+        else:
+            raise RunFileError("holds an unfinished run of this output; pass --resume to continue it "
+                               "or --force to start over", source=str(store.folder))
+    if not store.exists():
+        try:
+            store.create()
+        except OSError as exc:
+            raise RunFileError(f"cannot write here ({exc.strerror})", source=str(store.folder)) from None
+
+    tasks = plan_tasks(config)
+    todo = [t for t in tasks if not store.done(t)]
+    if progress is not None:
+        for t in tasks:
+            if store.done(t):
+                progress(*task_stars(config, t))
+    for task, arrays in execute(config, todo, workers=workers, scheduler=scheduler):
+        store.save(task, arrays)
+        if progress is not None:
+            progress(*task_stars(config, task))
+
     control = DEFAULT_STEPS.scaled(config.solver.step_scale)
-    writer = RunFileWriter(out, config_text=config.text, force=force)
+    writer = RunFileWriter(out, config_text=config.text, force=True)
     try:
-        for eos in built:
-            sweep_eos(eos, config.axis.quantity, config.axis.values, control=control,
-                      chunk_size=config.solver.chunk_size, sink=writer, progress=progress,
-                      target_masses=config.target_masses, binaries=config.binaries)
+        for eos, spec in zip(built, config.eos, strict=True):
+            h_all = central_enthalpy(eos, config.axis.quantity, config.axis.values)
+            parts = (store.load(t) for t in tasks if t.section == "eos" and t.block == spec.index)
+            write_sequence(eos, h_all, parts, writer, control=control,
+                           target_masses=config.target_masses, binaries=config.binaries)
+        for ens in config.ensembles:
+            parts = [t for t in tasks if t.section == "ensemble" and t.block == ens.index]
+            writer.write_ensemble(ens, config.axis, ((t, store.load(t)) for t in parts))
     except BaseException:
-        writer.abort()
+        writer.discard()
         raise
-    return writer.close()
+    path = writer.close()
+    store.remove()
+    return path
 
-
-# --- Rebuilding an EOS from a run file, and stars at given masses ------------
 
 def eos_from_sequence(seq: EOSSequence) -> EquationOfState:
     """Rebuild the EOS of a run-file group from its ``kind`` and ``parameters``.

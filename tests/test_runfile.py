@@ -173,28 +173,40 @@ def test_existing_file_is_not_overwritten_without_force(tmp_path):
     assert not (tmp_path / "run.h5.partial").exists()
 
 
-def test_interrupted_sweep_leaves_only_the_partial_file(tmp_path, monkeypatch):
+def test_interrupted_sweep_keeps_finished_chunks_and_resumes(tmp_path, monkeypatch):
+    # Issue #6: a crash keeps every finished chunk as a part file, never a truncated run
+    # file; --resume computes only the missing chunks and gives the uninterrupted result.
+    from stellar_match import scheduling
+
     cfg = write_config(tmp_path, CONFIG_TEXT.replace("[[eos]]", "[solver]\nchunk_size = 5\n\n[[eos]]", 1))
     out = tmp_path / "run.h5"
-    real = sweep.solve_interiors
+    real = scheduling.run_task
     calls = []
 
-    def fail_after_first_chunk(*args, **kwargs):
-        calls.append(1)
+    def fail_after_first_chunk(config, task):
+        calls.append(task)
         if len(calls) > 1:
             raise RuntimeError("simulated crash")
-        return real(*args, **kwargs)
+        return real(config, task)
 
-    monkeypatch.setattr(sweep, "solve_interiors", fail_after_first_chunk)
+    monkeypatch.setattr(scheduling, "run_task", fail_after_first_chunk)
     with pytest.raises(RuntimeError, match="simulated crash"):
         sweep.run_config(cfg, out)
-    assert not out.exists()
-    partial = tmp_path / "run.h5.partial"
-    assert partial.exists()
-    with h5py.File(partial, "r") as f:  # closed cleanly, holding the finished chunk
-        assert f["eos"]["sly"]["mass"].shape == (5,)
-    with pytest.raises(RunFileError, match="unfinished run.h5.partial"):
+    assert not out.exists() and not (tmp_path / "run.h5.partial").exists()
+    parts = sorted((tmp_path / "run.h5.parts").glob("*.npz"))
+    assert len(parts) == 1
+    with pytest.raises(RunFileError, match="--resume"):
         read_run(out)
+    with pytest.raises(RunFileError, match="--resume"):  # no silent restart over the parts
+        sweep.run_config(cfg, out)
+    monkeypatch.setattr(scheduling, "run_task", real)
+    calls.clear()
+    resumed = read_run(sweep.run_config(cfg, out, resume=True))
+    assert not (tmp_path / "run.h5.parts").exists()
+    fresh = read_run(sweep.run_config(cfg, tmp_path / "fresh.h5"))
+    for name, seq in fresh.eos.items():
+        for col, values in seq.columns.items():
+            np.testing.assert_array_equal(resumed.eos[name][col], values)
 
 
 def test_read_run_rejects_a_non_hdf5_file(tmp_path):

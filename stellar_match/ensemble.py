@@ -1,0 +1,319 @@
+"""Ensembles: families of parametrised EOS of one kind, solved member by member.
+
+An ``[[ensemble]]`` block names a kind and gives its members either as a CSV
+file (one row per member, one column per parameter) or as a seeded uniform
+sampler.  The sampler uses numpy's PCG64 generator, whose stream is fixed by
+the seed on every platform, so the same seed gives the same members
+anywhere.  A member that cannot be built or solved gets a status code; it
+never stops the run.
+"""
+
+from __future__ import annotations
+
+import io
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from . import units
+from .eos import EquationOfState, polytrope, read_piecewise_polytrope
+from .errors import ConfigError, InputError
+from .sequence import analyse_sequence
+from .structure import StepControl, solve_interiors
+
+__all__ = ["EnsembleSpec", "ENSEMBLE_KINDS", "STATUS_MEANING", "MEMBER_SUMMARIES", "solve_members"]
+
+#: Parameters of each ensemble kind, in the order of the member table.
+ENSEMBLE_KINDS: dict[str, tuple[str, ...]] = {
+    "piecewise_polytrope": ("log10_p1", "gamma1", "gamma2", "gamma3"),
+    "polytrope": ("K", "gamma"),
+}
+#: Member status codes (dataset ``status``) and their meaning (attribute ``status_meaning``).
+STATUS_MEANING: dict[int, str] = {
+    0: "ok",
+    1: "invalid parameters: the EOS cannot be built",
+    2: "acausal: sound speed above c below the maximum-mass density",
+    3: "no stable star in the sweep range",
+    4: "maximum mass not reached in the sweep range",
+    5: "central density beyond the EOS's validity",
+    6: "solver produced non-finite stars",
+}
+#: Per-member summaries: dataset name -> unit.
+MEMBER_SUMMARIES: dict[str, str] = {
+    "max_mass": "Msun",
+    "max_mass_radius": "km",
+    "max_mass_central_density": "g/cm3",
+    "radius_at_1.4": "km",
+    "tidal_deformability_at_1.4": "1",
+    "causal": "1",
+    "status": "1",
+}
+
+
+@dataclass(frozen=True)
+class EnsembleSpec:
+    """One validated ``[[ensemble]]`` block.
+
+    Attributes
+    ----------
+    index : int
+        Position among the config's ensembles.
+    name, kind : str
+        Label and EOS kind (a key of :data:`ENSEMBLE_KINDS`).
+    parameters : ndarray, shape (members, n_parameters)
+        Member parameters, columns in ``ENSEMBLE_KINDS[kind]`` order.
+    origin : dict
+        How the members were given (file and its sha256, or sampler ranges and seed).
+    """
+
+    index: int
+    name: str
+    kind: str
+    parameters: np.ndarray = field(repr=False)
+    origin: dict
+
+    @property
+    def size(self) -> int:
+        return int(self.parameters.shape[0])
+
+    @property
+    def parameter_names(self) -> tuple[str, ...]:
+        return ENSEMBLE_KINDS[self.kind]
+
+    def member_eos(self, i: int) -> EquationOfState:
+        """Build member ``i`` (raises InputError for invalid parameters)."""
+        row = self.parameters[i]
+        name = f"{self.name}[{i}]"
+        if self.kind == "piecewise_polytrope":
+            return read_piecewise_polytrope(name, row[0], [row[1], row[2], row[3]])
+        return polytrope(name, row[0], row[1])
+
+
+def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) -> EnsembleSpec:
+    """Validate one ``[[ensemble]]`` table (errors name the file and dotted key)."""
+    key = f"ensemble[{index}]"
+
+    def fail(sub: str, msg: str) -> ConfigError:
+        return ConfigError(msg, source=source, key=f"{key}.{sub}" if sub else key)
+
+    if not isinstance(block, dict):
+        raise fail("", "needs a table")
+    allowed = {"name", "kind", "members", "sample"}
+    for k in block:
+        if k not in allowed:
+            raise fail(k, f"unknown key (expected one of: {', '.join(sorted(allowed))})")
+    name, kind = block.get("name"), block.get("kind")
+    if not isinstance(name, str) or not name.strip() or "/" in name:
+        raise fail("name", f"needs a non-empty name without '/', got {name!r}")
+    if kind not in ENSEMBLE_KINDS:
+        raise fail("kind", f"unknown ensemble kind {kind!r} (use one of: {', '.join(ENSEMBLE_KINDS)})")
+    names = ENSEMBLE_KINDS[kind]
+    if ("members" in block) == ("sample" in block):
+        raise fail("", "needs exactly one of members (a CSV file) or [ensemble.sample]")
+    if "members" in block:
+        path = block["members"]
+        if not isinstance(path, str) or not path:
+            raise fail("members", "needs a CSV file path")
+        p = Path(path)
+        if not p.is_absolute() and base_dir is not None:
+            p = base_dir / p
+        params, sha = _read_members(p, names, source, f"{key}.members")
+        origin = {"members": str(p), "members_sha256": sha}
+    else:
+        spec = block["sample"]
+        if not isinstance(spec, dict):
+            raise fail("sample", "needs a table with count, seed and a [low, high] range per parameter")
+        for k in spec:
+            if k not in {"count", "seed", *names}:
+                raise fail(f"sample.{k}", f"unknown key (expected count, seed, {', '.join(names)})")
+        count, seed = spec.get("count"), spec.get("seed")
+        if isinstance(count, bool) or not isinstance(count, int) or not 1 <= count <= 10**6:
+            raise fail("sample.count", f"needs a whole number from 1 to 1000000, got {count!r}")
+        if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+            raise fail("sample.seed", f"needs a whole number >= 0, got {seed!r}")
+        ranges = []
+        for n in names:
+            r = spec.get(n)
+            if (not isinstance(r, list) or len(r) != 2
+                    or any(isinstance(v, bool) or not isinstance(v, int | float) for v in r)
+                    or not r[0] < r[1]):
+                raise fail(f"sample.{n}", f"needs a range [low, high] with low < high, got {r!r}")
+            ranges.append((float(r[0]), float(r[1])))
+        lo = np.array([r[0] for r in ranges])
+        hi = np.array([r[1] for r in ranges])
+        rng = np.random.Generator(np.random.PCG64(seed))
+        params = lo + (hi - lo) * rng.random((count, len(names)))
+        origin = {"sampler": "uniform", "generator": "numpy PCG64", "seed": seed,
+                  "ranges": {n: list(r) for n, r in zip(names, ranges, strict=True)}}
+    return EnsembleSpec(index=index, name=name, kind=kind, parameters=params, origin=origin)
+
+
+def _read_members(path: Path, names: tuple[str, ...], source: str, key: str) -> tuple[np.ndarray, str]:
+    import hashlib
+
+    try:
+        raw = path.read_bytes()
+    except OSError:
+        raise ConfigError("members file not found or unreadable", source=str(path)) from None
+    text = raw.decode("utf-8-sig", errors="replace")
+    lines = [(i, ln.strip()) for i, ln in enumerate(io.StringIO(text), start=1)
+             if ln.strip() and not ln.strip().startswith("#")]
+    if not lines:
+        raise ConfigError("members file has no header row", source=str(path))
+    header = [h.strip() for h in lines[0][1].split(",")]
+    missing = [n for n in names if n not in header]
+    if missing:
+        raise ConfigError(f"members file lacks column(s) {', '.join(missing)}; header has {', '.join(header)}",
+                          source=str(path))
+    cols = [header.index(n) for n in names]
+    rows = []
+    for number, line in lines[1:]:
+        fields = [f.strip() for f in line.split(",")]
+        if len(fields) != len(header):
+            raise ConfigError(f"{len(fields)} fields where the header has {len(header)}", source=str(path),
+                              row=number)
+        try:
+            rows.append([float(fields[c]) for c in cols])
+        except ValueError:
+            raise ConfigError("a parameter is not a number", source=str(path), row=number) from None
+    if not rows:
+        raise ConfigError("members file has no member rows", source=str(path))
+    if len(rows) > 10**6:
+        raise ConfigError(f"{len(rows)} members; at most 1000000 per ensemble", source=str(path))
+    return np.array(rows), hashlib.sha256(raw).hexdigest()
+
+
+def _interpolate_at(mass, values, stable, target=1.4) -> float:
+    """``values`` at ``target`` Msun by cubic interpolation along the stable branch."""
+    from scipy.interpolate import CubicSpline
+
+    m, v = mass[stable], values[stable]
+    if m.size < 2 or not (m.min() <= target <= m.max()):
+        return float("nan")
+    order = np.argsort(m)
+    m, v = m[order], v[order]
+    keep = np.concatenate([[True], np.diff(m) > 0])
+    m, v = m[keep], v[keep]
+    if m.size < 4:
+        return float(np.interp(target, m, v))
+    return float(CubicSpline(m, v)(target))
+
+
+def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, values,
+                  control: StepControl) -> dict[str, np.ndarray]:
+    """Solve members ``start:stop`` over the sweep: 2-D per-star arrays and 1-D summaries.
+
+    All valid members of the chunk are solved as one batch through an
+    :class:`~stellar_match.eos.EOSStack` (results equal member-by-member
+    solves to the last bit), and their maxima are refined together.
+
+    Returns
+    -------
+    dict of str -> ndarray
+        The per-star run-file columns, shape (stop - start, stars), and the
+        :data:`MEMBER_SUMMARIES`, shape (stop - start,).  Failed members have
+        NaN rows and a non-zero ``status``.
+    """
+    from .eos import EOSStack
+    from .runfile import STAR_DATASETS
+    from .sweep import _columns_from_interiors, central_enthalpy
+
+    values = np.asarray(values, dtype=float)
+    n, n_stars = stop - start, values.size
+    out: dict[str, np.ndarray] = {k: np.full((n, n_stars), np.nan) for k in STAR_DATASETS if k != "stable"}
+    out["stable"] = np.zeros((n, n_stars), dtype=bool)
+    for k in MEMBER_SUMMARIES:
+        out[k] = np.full(n, np.nan)
+    out["causal"] = np.zeros(n, dtype=bool)
+    out["status"] = np.zeros(n, dtype=np.int8)
+
+    members, rows, h_rows = [], [], []
+    for row, i in enumerate(range(start, stop)):
+        try:
+            eos = spec.member_eos(i)
+        except (InputError, ValueError, FloatingPointError, OverflowError):
+            out["status"][row] = 1
+            continue
+        try:
+            h_rows.append(central_enthalpy(eos, quantity, values))
+        except InputError:
+            out["status"][row] = 5
+            continue
+        members.append(eos)
+        rows.append(row)
+    if not members:
+        return out
+    stack = EOSStack(members)
+    member = np.repeat(np.arange(len(members)), n_stars)
+    with np.errstate(all="ignore"):
+        cols = _columns_from_interiors(None, solve_interiors(stack.bind(member), np.concatenate(h_rows),
+                                                             control=control))
+    guesses, widths, analyses = [], [], []
+    for k, row in enumerate(rows):
+        sl = slice(k * n_stars, (k + 1) * n_stars)
+        if not (np.all(np.isfinite(cols["mass"][sl])) and np.all(np.isfinite(cols["radius"][sl]))):
+            out["status"][row] = 6
+            analyses.append(None)
+            continue
+        for name, v in cols.items():
+            out[name][row] = v[sl]
+        a = analyse_sequence(h_rows[k], units.mass_to_geometric(cols["mass"][sl]), cols["radius"][sl], None)
+        analyses.append(a)
+        out["stable"][row] = a.stable
+        if np.isfinite(a.max_enthalpy):
+            guesses.append((k, np.log(a.max_enthalpy)))
+            x = np.log(np.sort(h_rows[k]))
+            widths.append(float(np.median(np.diff(x))) if x.size > 1 else 1e-2)
+
+    x_max = _refine_maxima(stack, guesses, widths, control)
+    for k, row in enumerate(rows):
+        a = analyses[k]
+        if a is None:
+            continue
+        eos = members[k]
+        found = k in x_max
+        h_top = float(np.exp(x_max[k][0])) if found else float(np.max(h_rows[k]))
+        out["causal"][row] = bool(eos.max_sound_speed_squared(h_top) <= 1.0)
+        if found:
+            out["max_mass"][row] = units.mass_from_geometric(x_max[k][1])
+            out["max_mass_radius"][row] = x_max[k][2]
+            _, _, rho = eos.state(np.array([h_top]))
+            out["max_mass_central_density"][row] = units.density_from_geometric(rho[0])
+        m = out["mass"][row]
+        out["radius_at_1.4"][row] = _interpolate_at(m, out["radius"][row], a.stable)
+        out["tidal_deformability_at_1.4"][row] = _interpolate_at(m, out["tidal_deformability"][row], a.stable)
+        if not a.stable.any():
+            out["status"][row] = 3
+        elif not out["causal"][row]:
+            out["status"][row] = 2
+        elif not found:
+            out["status"][row] = 4
+    return out
+
+
+def _refine_maxima(stack, guesses, widths, control, passes: int = 3) -> dict[int, tuple[float, float, float]]:
+    """Refine every member's maximum together: {member: (ln h_max, M_max km, R km)}.
+
+    Each pass solves five stars per member across +-width around its estimate
+    in one stacked batch and moves the estimate to the vertex of the fitted
+    parabola; the width shrinks 8-fold per pass (the single-EOS refinement of
+    :mod:`stellar_match.sequence`, done for all members at once).
+    """
+    if not guesses:
+        return {}
+    ks = np.array([k for k, _ in guesses])
+    x = np.array([g for _, g in guesses])
+    w = np.array(widths) * 0.5
+    offsets = np.linspace(-1.0, 1.0, 5)
+    for _ in range(passes):
+        xs = x[:, None] + w[:, None] * offsets[None, :]
+        r = solve_interiors(stack.bind(np.repeat(ks, 5)), np.exp(xs).ravel(), control=control, response=False)
+        m = r.mass.reshape(-1, 5)
+        for i in range(ks.size):
+            c2, c1, _ = np.polyfit(offsets * w[i], m[i], 2)
+            if c2 < 0 and np.all(np.isfinite(m[i])):
+                x[i] += float(np.clip(-c1 / (2 * c2), -w[i], w[i]))
+        w /= 8.0
+    final = solve_interiors(stack.bind(ks), np.exp(x), control=control, response=False)
+    return {int(k): (float(x[i]), float(final.mass[i]), float(final.radius[i])) for i, k in enumerate(ks)}
