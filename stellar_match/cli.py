@@ -75,6 +75,16 @@ def summary_table(run) -> str:
              for r in (head, units_row, *rows)]
     notes = [f"  {n}: maximum {seq.summary['max_mass_status']}" for n, seq in run.eos.items()
              if not str(seq.summary.get("max_mass_status", "found")).startswith("found")]
+    for name, ens in run.ensembles.items():
+        status = np.asarray(ens["status"])
+        mm = np.asarray(ens["max_mass"])
+        ok = status == 0
+        counts = ", ".join(f"{int((status == k).sum())} {ens.status_meaning.get(k, k)}"
+                           for k in np.unique(status) if k != 0)
+        mm_ok = mm[ok & np.isfinite(mm)]
+        span = f"M_max {mm_ok.min():.3f}-{mm_ok.max():.3f} Msun" if mm_ok.size else "no M_max"
+        notes.append(f"  ensemble {name}: {status.size} members, {int(ok.sum())} ok ({span})"
+                     + (f"; {counts}" if counts else ""))
     if interpolated:
         notes.append("  values at 1.4 Msun interpolated on the stable branch; add 1.4 to "
                      "[sweep] target_masses for exact solves")

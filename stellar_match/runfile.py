@@ -248,11 +248,42 @@ class RunFile:
         One entry per ``/eos/<name>`` group, in file order.
     """
 
-    def __init__(self, path: Path, attrs: dict, eos: dict[str, EOSSequence]) -> None:
+    def __init__(self, path: Path, attrs: dict, eos: dict[str, EOSSequence],
+                 ensembles: dict[str, EnsembleSummary] | None = None) -> None:
         self.path, self.attrs, self.eos = path, attrs, eos
+        self.ensembles = ensembles or {}
 
     def __repr__(self) -> str:
-        return f"RunFile({str(self.path)!r}, eos={list(self.eos)})"
+        return f"RunFile({str(self.path)!r}, eos={list(self.eos)}, ensembles={list(self.ensembles)})"
+
+    def ensemble_dataset(self, name: str, column: str, members=slice(None)) -> np.ndarray:
+        """Read (part of) a 2-D ensemble dataset, members x stars, from the file."""
+        with h5py.File(self.path, "r") as f:
+            try:
+                return f["ensemble"][name][column][members]
+            except KeyError:
+                raise RunFileError(f"no dataset ensemble/{name}/{column}", source=str(self.path)) from None
+
+
+class EnsembleSummary:
+    """The 1-D part of an ``/ensemble/<name>`` group: member table and per-member summaries.
+
+    The 2-D per-star datasets stay on disk (they can hold 10^8 numbers); read
+    them with :meth:`RunFile.ensemble_dataset` or h5py.
+    """
+
+    def __init__(self, name: str, attrs: dict, members: dict[str, np.ndarray],
+                 summaries: dict[str, np.ndarray]) -> None:
+        self.name, self.attrs, self.members, self.summaries = name, attrs, members, summaries
+        self.kind = attrs.get("kind")
+        self.status_meaning = {int(k): v for k, v in json.loads(attrs.get("status_meaning", "{}")).items()}
+
+    @property
+    def size(self) -> int:
+        return int(next(iter(self.summaries.values())).size) if self.summaries else 0
+
+    def __getitem__(self, key: str) -> np.ndarray:
+        return self.summaries[key]
 
 
 def _attr(v):
@@ -312,4 +343,10 @@ def read_run(path: str | Path) -> RunFile:
                 summary=ga,
                 groups=groups,
             )
-    return RunFile(path, attrs, sequences)
+        ensembles = {}
+        for name, g in (f["ensemble"].items() if isinstance(f.get("ensemble"), h5py.Group) else ()):
+            members = {k: d[()] for k, d in g["members"].items()}
+            summaries = {k: d[()] for k, d in g.items() if isinstance(d, h5py.Dataset) and d.ndim == 1
+                         and k != "sweep_values"}
+            ensembles[name] = EnsembleSummary(name, {k: _attr(v) for k, v in g.attrs.items()}, members, summaries)
+    return RunFile(path, attrs, sequences, ensembles)

@@ -486,10 +486,11 @@ def stars_at_masses(
 ) -> dict[str, np.ndarray]:
     """Solve the stable-branch star of each requested gravitational mass.
 
-    For every mass the central density is root-found with
-    :func:`scipy.optimize.brentq` between the two stable sweep samples that
-    bracket it (the maximum-mass star closes the branch), each trial being a
-    fresh :func:`solve_stars`; the result is solved once more at the root.
+    Each mass is bracketed between the two stable sweep samples around it
+    (the maximum-mass star closes the branch) and its central density is
+    root-found in ln(rho_c) by the Illinois variant of regula falsi, all
+    requested masses advancing together: every iteration is one batched
+    solve, not one solve per mass.  The result is a fresh solve at the root.
     The incompressible EOS, whose central density is constant, is
     root-found in the central pressure instead.
 
@@ -514,35 +515,57 @@ def stars_at_masses(
         does not reach the mass (above M_max or below the lightest stable
         sample).
     """
-    from scipy.optimize import brentq
-
     axis = "central_pressure" if seq.kind == "incompressible" else "central_density"
     x, m = _stable_branch(seq, axis)
     targets = np.atleast_1d(np.asarray(masses, dtype=float))
-    rows: list[dict[str, np.ndarray] | None] = []
+    names = [k for k in STAR_DATASETS if k != "stable"]
+    out = {k: np.full(targets.size, np.nan) for k in names}
+    if x.size < 2:
+        return out
+    lx = np.log(x)
+    which = [np.flatnonzero((m[:-1] <= t) & (t <= m[1:])) for t in targets]
+    ok = np.array([w.size > 0 for w in which])
+    if not ok.any():
+        return out
+    idx = np.array([w[0] for w in which if w.size])
+    t = targets[ok]
 
-    def solve_at(log_x: float) -> dict[str, np.ndarray]:
-        return solve_stars(eos, control=control, **{axis: [float(np.exp(log_x))]})
+    def miss(log_x, sel):
+        cols = solve_stars(eos, control=control, **{axis: np.exp(log_x)})
+        return cols["mass"] / t[sel] - 1.0
 
-    for target in targets:
-        inside = np.flatnonzero((m[:-1] <= target) & (target <= m[1:]))
-        if inside.size == 0:
-            rows.append(None)
-            continue
-        i = int(inside[0])
+    every = np.ones(t.size, dtype=bool)
 
-        def miss(lx: float, target: float = target) -> float:
-            return float(solve_at(lx)["mass"][0]) / target - 1.0
-
-        # M ~ rho_c^O(1) on the stable branch: a log-density error dx is a relative mass error ~ dx
-        found = None
-        for lo, hi in ((i, i + 1), (max(i - 1, 0), min(i + 2, x.size - 1))):
-            try:  # the wider bracket covers fresh solves that differ from the samples by solver noise
-                found = brentq(miss, np.log(x[lo]), np.log(x[hi]), xtol=rtol * 1e-3, rtol=4 * np.finfo(float).eps)
-                break
-            except ValueError:
-                continue
-        rows.append(None if found is None else solve_at(found))
-
-    names = next((list(r) for r in rows if r is not None), [k for k in STAR_DATASETS if k != "stable"])
-    return {k: np.array([r[k][0] if r is not None else np.nan for r in rows]) for k in names}
+    # brackets from the samples, re-evaluated by fresh solves (solver noise can
+    # move a sample across the target; then widen to the neighbours)
+    a, b = lx[idx], lx[np.minimum(idx + 1, lx.size - 1)]
+    fa, fb = miss(a, every), miss(b, every)
+    bad = ~((fa <= 0) & (fb >= 0))
+    if bad.any():
+        a[bad] = lx[np.maximum(idx[bad] - 1, 0)]
+        b[bad] = lx[np.minimum(idx[bad] + 2, lx.size - 1)]
+        fa[bad], fb[bad] = miss(a[bad], bad), miss(b[bad], bad)
+    valid = (fa <= 0) & (fb >= 0)
+    xr = np.where(fa == 0, a, b)
+    side = np.zeros(t.size, dtype=int)
+    for _ in range(60):
+        active = valid & (np.abs(b - a) > 1e-14 * np.abs(b)) & (np.minimum(np.abs(fa), np.abs(fb)) > rtol * 1e-3)
+        if not active.any():
+            break
+        xr = np.where(active, (a * fb - b * fa) / np.where(fb != fa, fb - fa, 1.0), xr)
+        fr = np.zeros(t.size)
+        fr[active] = miss(xr[active], active)
+        left = active & (fr < 0)
+        right = active & (fr >= 0)
+        a[left], fa[left] = xr[left], fr[left]
+        b[right], fb[right] = xr[right], fr[right]
+        # Illinois: halve the stale end's value after two moves on the same side
+        fb[left & (side == -1)] *= 0.5
+        fa[right & (side == 1)] *= 0.5
+        side = np.where(left, -1, np.where(right, 1, side))
+    root = np.where(np.abs(fa) < np.abs(fb), a, b)
+    cols = solve_stars(eos, control=control, **{axis: np.exp(root[valid])})
+    rows = np.flatnonzero(ok)[valid]
+    for k in names:
+        out[k][rows] = cols[k]
+    return out
