@@ -172,8 +172,10 @@ ENVELOPE_FRACTION = 1e-6
 ENVELOPE_GRADING = 0.4
 ENVELOPE_STEPS = 10
 #: Stars less compact than this are re-solved with a deeper envelope (see solve_interiors).
-LOW_COMPACTNESS = 0.01
+LOW_COMPACTNESS = 0.006
 REDO_ENVELOPE_FRACTION = 1e-13
+#: ... and with every step length scaled by this (they are few; their envelopes are long).
+REDO_STEP_SCALE = 0.5
 #: EOS values at a step edge h = 0 are taken at SURFACE_GUARD * h_c instead:
 #: d eps/dh diverges at p = 0 when the outermost piece has Gamma > 2.
 SURFACE_GUARD = 1e-12
@@ -456,6 +458,7 @@ def step_grid(
     startup_end: np.ndarray,
     envelope_enthalpy: np.ndarray,
     growth: float,
+    max_step: float = np.inf,
 ) -> np.ndarray:
     """Per-star step edges: a geometric start-up, then the EOS nodes.
 
@@ -469,6 +472,8 @@ def step_grid(
         uses no density nodes.
     growth : float
         Ratio of each start-up step to its distance from the centre.
+    max_step : float
+        The largest enthalpy step of the other edges (``enthalpy_step``).
 
     Returns
     -------
@@ -477,13 +482,24 @@ def step_grid(
         need fewer steps end with zero-length steps at h = 0.
     """
     h_c = central_enthalpy
-    n_geo = np.ceil(np.log(startup_end / start_offset) / np.log1p(growth)).astype(np.intp)
+    # The geometric progression runs all the way to h = 0 (as extra edges beyond the
+    # start-up end): no step may exceed ``growth`` times its distance from the centre,
+    # or the decaying central mode makes explicit steps unstable, e.g. where a stiff
+    # piece with sparse nodes follows a soft piece just off the centre.
+    n_geo = np.ceil(np.log(h_c / start_offset) / np.log1p(growth)).astype(np.intp)
     k = np.arange(int(n_geo.max(initial=0)) + 1)[:, None]
-    x = np.minimum(start_offset[None, :] * (1.0 + growth) ** k, startup_end[None, :])
+    x = start_offset[None, :] * (1.0 + growth) ** k
+    dense = x <= startup_end[None, :]
+    # beyond x = min(h_c / 2, enthalpy_step / growth) the other edges are dense enough
+    reach = np.maximum(startup_end, np.minimum(0.5 * h_c, max_step / growth))[None, :]
+    x = np.where(dense | (x < reach), np.minimum(x, reach), reach)
     top = (h_c - startup_end)[None, :]
     always, density, breakpoints = _column(always), _column(density), _column(breakpoints)
-    use_always = always < top
-    use_density = (density < top) & (density >= envelope_enthalpy[None, :])
+    # EOS nodes apply inside the start-up region too: where c_s^2 changes fast near
+    # the centre (soft pieces, Gamma < 1) the start-up alone would step too far
+    start = (h_c - start_offset)[None, :]
+    use_always = always < start
+    use_density = (density < start) & (density >= envelope_enthalpy[None, :])
     # every breakpoint below the start is an edge, also inside the start-up region
     use_breaks = breakpoints < (h_c - start_offset)[None, :]
     # the envelope is graded geometrically towards h = 0: there 1/r, not r, is
@@ -534,7 +550,8 @@ def solve_interiors(
     rho_c).  Stars that come out puffed up (GM/(Rc^2) < LOW_COMPACTNESS, the
     low-mass and unstable configurations near the minimum mass) keep much of
     their radius there, so they are solved again, each on its own grid, with
-    the envelope pushed down to REDO_ENVELOPE_FRACTION rho_c.  The decision
+    the envelope pushed down to REDO_ENVELOPE_FRACTION rho_c and steps scaled
+    by REDO_STEP_SCALE.  The decision
     depends only on the star itself, never on its batch.
     """
     h_c = np.atleast_1d(np.asarray(central_enthalpy, dtype=float))
@@ -546,7 +563,8 @@ def solve_interiors(
         puffed = np.flatnonzero(~(y[1] * y[0] >= LOW_COMPACTNESS))  # m/r = v u; also NaN
         if puffed.size:
             sub = eos.select(puffed) if hasattr(eos, "select") else eos
-            y[:, puffed] = _integrate(sub, h_c[puffed], control, response, REDO_ENVELOPE_FRACTION)
+            y[:, puffed] = _integrate(sub, h_c[puffed], control.scaled(REDO_STEP_SCALE), response,
+                                      REDO_ENVELOPE_FRACTION)
 
     u, v, w = y[:3]
     radius = np.sqrt(u)
@@ -598,7 +616,8 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> np.ndarray:
         always, density, breaks = _stacked_nodes(eos, control, h_c, rho_env)
     else:
         always, density, breaks = eos_nodes(eos, control, float(h_c.max()), float(rho_env.min()))
-    edges = step_grid(always, density, breaks, h_c, x0, startup_end, h_env, control.startup_growth)
+    edges = step_grid(always, density, breaks, h_c, x0, startup_end, h_env, control.startup_growth,
+                      control.enthalpy_step)
     h_from, h_to = edges[:-1], edges[1:]
     piece = eos.piece_index(0.5 * (h_from + h_to))
 

@@ -109,3 +109,22 @@ def test_two_star_sweeps_use_local_slopes():
     assert list(seq.stable) == [True, False]
     assert seq.summary["max_mass_status"] == "found"
     assert seq.summary["causal"]  # judged up to the maximum at 2.0e15, not up to 4e15
+
+
+def test_third_family_twin_branch_is_stable():
+    # A very soft middle piece (Gamma_2 = 0.5, a phase-transition-like softening; invented
+    # parameters) produces a second stable branch (twin stars).  Bardeen, Thorne & Meltzer
+    # 1966: the mode lost at the first maximum (counter-clockwise bend of M(R)) is regained
+    # at the following minimum (clockwise bend), so the third family is stable; M_max is
+    # the larger of the two maxima.
+    eos = sm.read_piecewise_polytrope("twin", 34.6, [3.5, 0.5, 6.0])
+    seq = sm.sweep_eos(eos, "central_density", np.geomspace(3e14, 8e15, 200))
+    rho, m, st = seq["central_density"], seq["mass"], seq.stable
+    turns = np.flatnonzero(np.diff(np.sign(np.diff(m))) != 0) + 1
+    first_max, first_min, second_max = rho[turns[:3]]
+    assert m[turns[0]] > m[turns[1]] < m[turns[2]]
+    assert st[rho < first_max * 0.99].all()
+    assert not st[(rho > first_max * 1.01) & (rho < first_min * 0.99)].any()
+    assert st[(rho > first_min * 1.01) & (rho < second_max * 0.99)].all()
+    assert not st[rho > second_max * 1.01].any()
+    assert seq.summary["max_mass"] == pytest.approx(m[turns[2]], rel=1e-3)
