@@ -118,14 +118,16 @@ class StepControl:
     """Where the fixed steps go; the accuracy knobs of the solver.
 
     Step edges are the union of (a) a geometric progression off the centre,
-    x_{k+1} = (1 + ``startup_growth``) x_k from x_0 = ``start_offset`` h_c,
-    which keeps explicit steps stable near the regular singular point where
-    the decaying mode v ~ x^(-3/2) lives; (b) EOS nodes spaced
-    ``density_step`` in ln(rho) above ``envelope_density``, so that steps
+    x_{k+1} = (1 + ``startup_growth``) x_k from x_0 = ``start_offset`` h_c out
+    to half the star, which keeps explicit steps stable near the regular
+    singular point where the decaying mode v ~ x^(-3/2) lives; (b) EOS nodes
+    spaced ``density_step`` in ln(rho) above the envelope, so that steps
     follow the local scale d h = c_s^2 d ln(rho) of the matter; (c) nodes
-    every ``enthalpy_step`` in h; (d) every EOS breakpoint.  The defaults come
-    from the convergence study in tests/test_structure.py and give relative
-    errors below 1e-6 in M and R (about 1e-8 at 1-2 solar masses).
+    every ``enthalpy_step`` in h; (d) every EOS breakpoint; (e) a geometric
+    grading of the envelope towards h = 0.  The defaults were chosen with
+    benchmarks/bench_sequence.py against solve_ivp at rtol 1e-11: relative
+    errors about 2e-7 in M and R over 0.2-2.0 Msun for SLy (below 1e-6 for
+    every star the tests check, puffed-up low-mass stars included).
 
     Attributes
     ----------
@@ -134,8 +136,8 @@ class StepControl:
     enthalpy_step : float
         Largest step in h.
     envelope_density : float
-        Rest-mass density (g/cm^3) below which only h-steps are used; the
-        envelope holds a negligible mass and r is nearly linear in h there.
+        Rest-mass density (g/cm^3) below which the envelope is graded in h
+        instead of followed in density (or ENVELOPE_FRACTION rho_c, if lower).
     startup_growth : float
         Largest step relative to the distance from the centre.
     start_offset : float
