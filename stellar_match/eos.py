@@ -87,11 +87,12 @@ class EquationOfState(ABC):
 
     @staticmethod
     @abstractmethod
-    def state_from_coefficients(h, coeff) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def state_from_coefficients(h, coeff, expm1_h=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(p, eps, rho) at ``h`` given per-point coefficients ``coeff``.
 
         The solver gathers coefficients once per step and calls this once per
-        stage; it is the hot path.
+        stage; it is the hot path.  ``expm1_h``, if given, is expm1(h),
+        computed once per stage and shared with the response equations.
         """
 
     @staticmethod
@@ -225,10 +226,11 @@ class PiecewisePolytrope(EquationOfState):
         return self._coeff
 
     @staticmethod
-    def state_from_coefficients(h, coeff):
+    def state_from_coefficients(h, coeff, expm1_h=None):
         # mu - (1 + a_i) = mu_s expm1(h) + (a_0 - a_i); then
         # rho^(Gamma-1) = (mu - 1 - a)(Gamma - 1)/(K Gamma): one power per call.
-        q = coeff["c1"] * (coeff["mu_s"] * np.expm1(h) + coeff["shift"])
+        em1 = np.expm1(h) if expm1_h is None else expm1_h
+        q = coeff["c1"] * (coeff["mu_s"] * em1 + coeff["shift"])
         rho = q ** coeff["inv_gm1"]
         p = coeff["K"] * rho * q
         eps = coeff["one_plus_a"] * rho + p * coeff["inv_gm1"]
@@ -316,9 +318,9 @@ class Incompressible(EquationOfState):
         return self._coeff
 
     @staticmethod
-    def state_from_coefficients(h, coeff):
+    def state_from_coefficients(h, coeff, expm1_h=None):
         eps0 = coeff["eps0"]
-        p = eps0 * np.expm1(h)
+        p = eps0 * (np.expm1(h) if expm1_h is None else expm1_h)
         eps = eps0 + 0.0 * p
         return p, eps, eps
 

@@ -281,7 +281,7 @@ def structure_rhs(y, p, eps, rho, out=None):
     return out
 
 
-def response_rhs(h, y, p, eps, rho, deps_dh, out=None):
+def response_rhs(h, y, p, eps, rho, deps_dh, out=None, exp_h=None):
     """d/dh of (u, v, w, y, omega, psi): structure plus tidal and rotational response.
 
     With q = (du/dh)/u, f = 1 - 2m/r, e^lambda = 1/f:
@@ -312,7 +312,7 @@ def response_rhs(h, y, p, eps, rho, deps_dh, out=None):
     u_e_lam = u * e_lam
     u_q = FOUR_PI * u_e_lam * (5.0 * eps + 9.0 * p + deps_dh) - 6.0 * e_lam - 4.0 * (u_e_lam * dd) ** 2
     np.multiply(-half_q, yy * yy + yy * e_lam * (1.0 + FOUR_PI * u * (p - eps)) + u_q, out=out[3])
-    jhat = np.exp(h) * sqrt_f
+    jhat = (np.exp(h) if exp_h is None else exp_h) * sqrt_f
     np.multiply(0.5 * du, psi / jhat, out=out[4])
     np.multiply(half_q, 16.0 * np.pi * (eps + p) * e_lam * jhat * om - 5.0 * psi, out=out[5])
     return out
@@ -631,20 +631,23 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> np.ndarray:
     c, a, b = tableau.c, tableau.a, tableau.b
     stages = len(b)
     # Stage derivatives live in one (stages, components, stars) array, so each
-    # stage's combination sum_j a_ij k_j is a single tensordot.
+    # stage's combination sum_j a_ij k_j is a single matrix-vector product.
     k = np.empty((stages,) + y.shape)
+    flat = k.reshape(stages, -1)  # the same memory, for one matrix-vector product per stage
+    shape = y.shape
     for s in range(h_from.shape[0]):
         h0 = h_from[s]
         dh = h_to[s] - h0
         idx = piece[s]
         coeff = {name: table[idx] for name, table in coeff_tables.items()}
         for i in range(stages):
-            yi = y if i == 0 else y + dh * np.tensordot(a[i, :i], k[:i], axes=1)
+            yi = y if i == 0 else y + dh * (a[i, :i] @ flat[:i]).reshape(shape)
             hi = np.maximum(h0 + c[i] * dh, h_guard)
-            p, e, r = evaluate(hi, coeff)
+            em1 = np.expm1(hi)
+            p, e, r = evaluate(hi, coeff, em1)
             if response:
-                response_rhs(hi, yi, p, e, r, slope(p, e, coeff), out=k[i])
+                response_rhs(hi, yi, p, e, r, slope(p, e, coeff), out=k[i], exp_h=1.0 + em1)
             else:
                 structure_rhs(yi, p, e, r, out=k[i])
-        y = y + dh * np.tensordot(b, k, axes=1)
+        y = y + dh * (b @ flat).reshape(shape)
     return y
