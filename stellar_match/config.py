@@ -103,7 +103,7 @@ class SolverOptions:
 
     step_scale: float = 1.0
     chunk_size: int = 2048
-    member_chunk_size: int = 64
+    member_chunk_size: int = 128
 
 
 @dataclass

@@ -152,35 +152,37 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
 def _read_members(path: Path, names: tuple[str, ...], source: str, key: str) -> tuple[np.ndarray, str]:
     import hashlib
 
+    def fail(message: str, line: int | None = None) -> ConfigError:
+        where = f" (line {line})" if line is not None else ""
+        return ConfigError(f"members file {path}{where}: {message}", source=source, key=key)
+
     try:
         raw = path.read_bytes()
     except OSError:
-        raise ConfigError("members file not found or unreadable", source=str(path)) from None
+        raise fail("not found or unreadable") from None
     text = raw.decode("utf-8-sig", errors="replace")
     lines = [(i, ln.strip()) for i, ln in enumerate(io.StringIO(text), start=1)
              if ln.strip() and not ln.strip().startswith("#")]
     if not lines:
-        raise ConfigError("members file has no header row", source=str(path))
+        raise fail("no header row")
     header = [h.strip() for h in lines[0][1].split(",")]
     missing = [n for n in names if n not in header]
     if missing:
-        raise ConfigError(f"members file lacks column(s) {', '.join(missing)}; header has {', '.join(header)}",
-                          source=str(path))
+        raise fail(f"lacks column(s) {', '.join(missing)}; header has {', '.join(header)}", lines[0][0])
     cols = [header.index(n) for n in names]
     rows = []
     for number, line in lines[1:]:
         fields = [f.strip() for f in line.split(",")]
         if len(fields) != len(header):
-            raise ConfigError(f"{len(fields)} fields where the header has {len(header)}", source=str(path),
-                              row=number)
+            raise fail(f"{len(fields)} fields where the header has {len(header)}", number)
         try:
             rows.append([float(fields[c]) for c in cols])
         except ValueError:
-            raise ConfigError("a parameter is not a number", source=str(path), row=number) from None
+            raise fail("a parameter is not a number", number) from None
     if not rows:
-        raise ConfigError("members file has no member rows", source=str(path))
+        raise fail("no member rows")
     if len(rows) > 10**6:
-        raise ConfigError(f"{len(rows)} members; at most 1000000 per ensemble", source=str(path))
+        raise fail(f"{len(rows)} members; at most 1000000 per ensemble")
     return np.array(rows), hashlib.sha256(raw).hexdigest()
 
 
@@ -282,7 +284,10 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
             out["max_mass_central_density"][row] = units.density_from_geometric(rho[0])
         m = out["mass"][row]
         out["radius_at_1.4"][row] = _interpolate_at(m, out["radius"][row], a.stable)
-        out["tidal_deformability_at_1.4"][row] = _interpolate_at(m, out["tidal_deformability"][row], a.stable)
+        # Lambda spans orders of magnitude along a branch: interpolate its logarithm
+        with np.errstate(divide="ignore", invalid="ignore"):
+            log_lam = np.log(out["tidal_deformability"][row])
+        out["tidal_deformability_at_1.4"][row] = np.exp(_interpolate_at(m, log_lam, a.stable))
         if not a.stable.any():
             out["status"][row] = 3
         elif not out["causal"][row]:
@@ -292,7 +297,7 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
     return out
 
 
-def _refine_maxima(stack, guesses, widths, control, passes: int = 3) -> dict[int, tuple[float, float, float]]:
+def _refine_maxima(stack, guesses, widths, control) -> dict[int, tuple[float, float, float]]:
     """Refine every member's maximum together: {member: (ln h_max, M_max km, R km)}.
 
     Each pass solves five stars per member across +-width around its estimate
@@ -306,6 +311,9 @@ def _refine_maxima(stack, guesses, widths, control, passes: int = 3) -> dict[int
     x = np.array([g for _, g in guesses])
     w = np.array(widths) * 0.5
     offsets = np.linspace(-1.0, 1.0, 5)
+    # M - M_max ~ (x - x*)^2: after p passes the location is known to ~w 8^-p (width
+    # w from the sample spacing), so the mass to ~(w 8^-p)^2; stop below 1e-9.
+    passes = int(np.clip(np.ceil(np.log(max(w.max(), 1e-12) / 3e-5) / np.log(8.0)), 1, 5))
     for _ in range(passes):
         xs = x[:, None] + w[:, None] * offsets[None, :]
         r = solve_interiors(stack.bind(np.repeat(ks, 5)), np.exp(xs).ravel(), control=control, response=False)

@@ -221,12 +221,12 @@ def _dask(config, tasks: list[Task], address: str, timeout: float) -> Iterator[t
         window = max(8, 4 * max(1, len(client.scheduler_info().get("workers", {}))))
         queue = list(tasks)
         futures = {}
-        done_iter = as_completed()
         while queue and len(futures) < window:
             t = queue.pop(0)
-            f = client.submit(run_task, shared, t, pure=False, retries=3)
-            futures[f] = t
-            done_iter.add(f)
+            futures[client.submit(run_task, shared, t, pure=False, retries=3)] = t
+        if not futures:
+            return
+        done_iter = as_completed(list(futures), loop=client.loop)  # this client, not a default one
         for fut in done_iter:
             task = futures.pop(fut)
             yield task, fut.result()
@@ -241,7 +241,7 @@ def _dask(config, tasks: list[Task], address: str, timeout: float) -> Iterator[t
 
 
 def execute(config, tasks: list[Task], *, workers: int = 1, scheduler: str | None = None,
-            timeout: float = SCHEDULER_TIMEOUT) -> Iterable[tuple[Task, dict]]:
+            timeout: float | None = None) -> Iterable[tuple[Task, dict]]:
     """Run ``tasks``, yielding (task, arrays) in completion order.
 
     Parameters
@@ -250,9 +250,10 @@ def execute(config, tasks: list[Task], *, workers: int = 1, scheduler: str | Non
         Local processes (1: in this process).  Ignored with ``scheduler``.
     scheduler : str, optional
         Address of a Dask distributed scheduler (e.g. ``tcp://host:8786``).
-    timeout : float
-        Seconds to wait for the scheduler.
+    timeout : float, optional
+        Seconds to wait for the scheduler (default :data:`SCHEDULER_TIMEOUT`).
     """
+    timeout = SCHEDULER_TIMEOUT if timeout is None else timeout
     if scheduler:
         return _dask(config, tasks, scheduler, timeout)
     if workers <= 1 or len(tasks) <= 1:

@@ -175,9 +175,9 @@ ENVELOPE_GRADING = 0.4
 ENVELOPE_STEPS = 10
 #: Stars less compact than this are re-solved with a deeper envelope (see solve_interiors).
 LOW_COMPACTNESS = 0.006
-REDO_ENVELOPE_FRACTION = 1e-13
+REDO_ENVELOPE_FRACTION = 1e-10
 #: ... and with every step length scaled by this (they are few; their envelopes are long).
-REDO_STEP_SCALE = 0.5
+REDO_STEP_SCALE = 0.7
 #: EOS values at a step edge h = 0 are taken at SURFACE_GUARD * h_c instead:
 #: d eps/dh diverges at p = 0 when the outermost piece has Gamma > 2.
 SURFACE_GUARD = 1e-12

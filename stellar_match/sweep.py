@@ -388,10 +388,15 @@ def run_config(
         for t in tasks:
             if store.done(t):
                 progress(*task_stars(config, t))
-    for task, arrays in execute(config, todo, workers=workers, scheduler=scheduler):
-        store.save(task, arrays)
-        if progress is not None:
-            progress(*task_stars(config, task))
+    try:
+        for task, arrays in execute(config, todo, workers=workers, scheduler=scheduler):
+            store.save(task, arrays)
+            if progress is not None:
+                progress(*task_stars(config, task))
+    except InputError:
+        if not any(store.done(t) for t in tasks):  # e.g. an unreachable scheduler: nothing to keep
+            store.remove()
+        raise
 
     control = DEFAULT_STEPS.scaled(config.solver.step_scale)
     writer = RunFileWriter(out, config_text=config.text, force=True)

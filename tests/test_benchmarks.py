@@ -1,0 +1,43 @@
+"""Smoke tests of the benchmark scripts: they run end to end on tiny sizes and write their JSON."""
+
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+BENCHMARKS = Path(__file__).resolve().parents[1] / "benchmarks"
+
+
+def run_script(name: str, *args, json_path: Path) -> dict:
+    proc = subprocess.run([sys.executable, str(BENCHMARKS / name), *map(str, args), "--json", str(json_path)],
+                          capture_output=True, text=True, timeout=120, check=False)
+    assert proc.returncode == 0, proc.stderr
+    assert f"wrote {json_path}" in proc.stdout
+    return json.loads(json_path.read_text())
+
+
+def test_bench_ensemble_quick(tmp_path):
+    report = run_script("bench_ensemble.py", "--quick", json_path=tmp_path / "ensemble.json")
+    assert report["quick"] is True
+    assert {"machine", "throughput", "memory", "implied_1e6_members"} <= report.keys()
+    t = report["throughput"]
+    for key in ("one_worker", "two_workers"):
+        run = t[key]
+        assert run["members_per_second"] > 0 and run["stars_per_second"] > 0
+        assert sum(run["status_counts"].values()) == run["members"]
+    assert t["speed_up"] > 0 and t["speed_up_target"] == 1.7
+    assert len(report["memory"]["runs"]) == 2
+    assert all(r["main_peak_rss_mib"] > 0 for r in report["memory"]["runs"])
+    assert report["implied_1e6_members"]["1_worker_hours"] > 0
+
+
+def test_bench_sequence_small(tmp_path):
+    report = run_script("bench_sequence.py", "--stars", 40, "--baseline-stars", 4, "--reference-stars", 4,
+                        json_path=tmp_path / "sequence.json")
+    assert report["stars"] == 40
+    for key in ("case1_sly", "case2_table", "case3_baseline_solve_ivp"):
+        assert report[key]["stars_per_second"] > 0, key
+    assert "mass" in report["case1_sly"]["max_relative_error"]
+    assert {"ratio_case1_over_case3", "response_cost_factor"} <= report.keys()
