@@ -126,13 +126,17 @@ def load_config(path: str | Path) -> SweepConfig:
     Relative table paths are resolved against the config file's folder.
     """
     path = Path(path)
+    return parse_config(read_text_file(path, "config"), source=str(path), base_dir=path.parent)
+
+
+def read_text_file(path: Path, what: str) -> str:
+    """The UTF-8 text of a user's TOML file; a missing or unreadable file is a ConfigError."""
     try:
-        text = path.read_text(encoding="utf-8")
+        return Path(path).read_text(encoding="utf-8")
     except FileNotFoundError:
-        raise ConfigError("config file not found", source=str(path)) from None
+        raise ConfigError(f"{what} file not found", source=str(path)) from None
     except (OSError, UnicodeDecodeError) as exc:
-        raise ConfigError(f"cannot read config file ({exc})", source=str(path)) from None
-    return parse_config(text, source=str(path), base_dir=path.parent)
+        raise ConfigError(f"cannot read {what} file ({exc})", source=str(path)) from None
 
 
 def _fail(source: str, key: str, message: str) -> ConfigError:

@@ -187,14 +187,10 @@ def load_constraints(path: str | Path) -> Constraints:
         Naming the file and the dotted key (``ellipse[0].correlation``) for
         unreadable TOML, unknown keys, missing keys, wrong types or values.
     """
+    from .config import read_text_file
+
     path = Path(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise ConfigError("constraints file not found", source=str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ConfigError(f"cannot read constraints file ({exc})", source=str(path)) from None
-    return parse_constraints(text, source=str(path))
+    return parse_constraints(read_text_file(path, "constraints"), source=str(path))
 
 
 # --- drawing ------------------------------------------------------------------------
