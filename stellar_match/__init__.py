@@ -38,6 +38,18 @@ from .sequence import EOSSequence, analyse_sequence
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 from .sweep import run_config, solve_stars, sweep_eos
 
+_LAZY = ("plots", "exports", "scheduling", "ensemble")
+
+
+def __getattr__(name: str):
+    # plots (matplotlib) and the rest load on first use: `import stellar_match` stays fast
+    if name in _LAZY:
+        import importlib
+
+        return importlib.import_module(f".{name}", __name__)
+    raise AttributeError(f"module 'stellar_match' has no attribute {name!r}")
+
+
 __all__ = [
     "__version__",
     "exterior",

@@ -87,7 +87,7 @@ def summary_table(run) -> str:
                      + (f"; {counts}" if counts else ""))
     if interpolated:
         notes.append("  values at 1.4 Msun interpolated on the stable branch; add 1.4 to "
-                     "[sweep] target_masses for exact solves")
+                     "[sweep] target_masses for exact solves of the [[eos]] blocks")
     return "\n".join(lines + notes)
 
 
@@ -248,14 +248,21 @@ def cmd_redshift(args) -> int:
     return 0
 
 
+class _OneLineParser(argparse.ArgumentParser):
+    """argparse, but a usage mistake is one line on stderr and exit status 2."""
+
+    def error(self, message: str):
+        self.exit(2, f"{PROG}: error: {message} (see {self.prog} --help)\n")
+
+
 def build_parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(
+    p = _OneLineParser(
         prog=PROG,
         description="Solve TOV interiors of dense stars, match them to the exterior "
         "Schwarzschild metric, and store mass-radius sequences in HDF5 run files.",
     )
     p.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
-    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND", parser_class=_OneLineParser)
 
     s = sub.add_parser("sweep", help="run a sweep config into an HDF5 run file")
     s.add_argument("config", help="TOML sweep config")
@@ -302,7 +309,10 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``stellar-match`` console script."""
     parser = build_parser()
-    args = parser.parse_args(argv)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # usage errors (one line, status 2), --help and --version (status 0)
+        return int(exc.code or 0)
     try:
         return args.func(args)
     except InputError as exc:

@@ -77,6 +77,9 @@ class EOSSpec:
         except ConfigError:
             raise
         except InputError as exc:
+            if exc.source and exc.row is None and exc.message == "table file not found":
+                raise ConfigError(f"table file {exc.source} not found", source=self.source,
+                                  key=f"{key}.path") from None
             if exc.source and not exc.key:  # a table error already names its file and line
                 raise
             # A key (e.g. columns.pressure.unit) is a mistake in this config, even

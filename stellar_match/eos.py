@@ -661,7 +661,7 @@ def from_table(name: str, path: str | Path, columns: TableColumns) -> PiecewiseP
     eos.first_law_deviation = float(deviation[worst])
     eos.table_density_range = (float(rho_cgs[0]), float(rho_cgs[-1]))
     eos.parameters = {
-        "path": str(path),
+        "path": str(Path(path).resolve()),  # absolute: a run file is read from anywhere
         "rows": int(rho.size),
         "columns": {
             "pressure": list(columns.pressure),

@@ -211,6 +211,11 @@ def _dask(config, tasks: list[Task], address: str, timeout: float) -> Iterator[t
         from dask.distributed import Client, as_completed
     except ImportError:
         raise InputError('--scheduler needs dask.distributed: pip install -e ".[distributed]"') from None
+    import re
+
+    if not re.fullmatch(r"([a-z]+://)?[^\s:/]+:\d+", address):
+        raise InputError(f"scheduler address {address!r} is not of the form tcp://host:port",
+                         key="--scheduler")
     try:
         client = Client(address, timeout=timeout, set_as_default=False)
     except (OSError, TimeoutError, ValueError) as exc:

@@ -365,9 +365,10 @@ def run_config(
     built = _build_all(config)
     if out.is_dir():
         raise RunFileError("is a folder; give a file name for the run file", source=str(out))
-    if out.exists() and not force:
-        raise RunFileError("exists already; pass --force to overwrite it", source=str(out))
     store = PartStore(out, config.text, __version__)
+    # an existing file may be overwritten with --force, or by resuming an interrupted --force run
+    if out.exists() and not force and not (resume and store.exists()):
+        raise RunFileError("exists already; pass --force to overwrite it", source=str(out))
     if store.exists():
         if force:
             store.remove()

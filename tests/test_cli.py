@@ -99,3 +99,17 @@ def test_console_entry_point_bad_config_end_to_end(tmp_path):
     assert result.stdout == ""
     line = assert_one_error_line(result.stderr)
     assert f"{cfg}: eos[0].gammas: " in line
+
+
+def test_usage_mistakes_are_one_line(run_cli):
+    # argparse's own errors (a word where a number belongs) follow the one-line rule too
+    code, _, err = run_cli("sweep", "x.toml", "--workers", "two")
+    assert code == 2 and len(err.strip().splitlines()) == 1 and "--workers" in err
+
+
+def test_malformed_scheduler_address_is_one_line(tmp_path, run_cli):
+    cfg = tmp_path / "c.toml"
+    cfg.write_text('[sweep]\ncentral_density = { values = [1e15] }\n[[eos]]\nname = "p"\nkind = "polytrope"\n'
+                   'K = 1e5\ngamma = 2.0\n')
+    code, _, err = run_cli("sweep", cfg, "--scheduler", "notanaddress")
+    assert code == 2 and len(err.strip().splitlines()) == 1 and "--scheduler" in err

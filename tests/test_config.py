@@ -138,8 +138,10 @@ def test_missing_table_file_names_the_table(tmp_path, run_cli):
     cfg.write_text(SMALL_DENSITY_AXIS + soft_table_block("no_such_table.csv"))
     code, _, err = run_cli("sweep", cfg)
     assert code == 2
-    # relative table paths are resolved against the config file's folder
-    assert f"{tmp_path / 'no_such_table.csv'}: table file not found" in assert_one_error_line(err)
+    # relative table paths are resolved against the config file's folder; the line names
+    # the config and its key as well as the table it looked for
+    line = assert_one_error_line(err)
+    assert f"{cfg}: eos[0].path: table file {tmp_path / 'no_such_table.csv'} not found" in line
 
 
 def test_overflowing_log10_p1(tmp_path, run_cli):
