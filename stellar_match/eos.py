@@ -348,7 +348,7 @@ class Incompressible(EquationOfState):
 
 # --- Factories from physical (cgs) parameters -------------------------------
 
-#: SLy crust fit of Read et al. 2009, Table II (from memory, as transcribed in
+#: SLy crust fit of Read et al. 2009, Table II (from memory, as listed in
 #: ../shared/REFERENCE_VALUES.md): (K in cgs with p/c^2 in g/cm^3, Gamma,
 #: upper density g/cm^3).  The last piece ends where the core begins.
 SLY_CRUST = (

@@ -1,4 +1,4 @@
-"""EOS kinds: Read et al. transcription, table interpolation, first law, causality."""
+"""EOS kinds: Read et al. crust coefficients, table interpolation, first law, causality."""
 
 from __future__ import annotations
 
@@ -13,7 +13,7 @@ SLY = dict(log10_p1=34.384, gammas=[3.005, 2.988, 2.851])  # Read et al. 2009, T
 C2 = (units.SPEED_OF_LIGHT_SI * 1e2) ** 2
 
 
-def test_sly_crust_transcription_is_continuous():
+def test_sly_crust_coefficients_are_continuous():
     # Read et al. 2009, Table II (from memory, ../shared/REFERENCE_VALUES.md): the four
     # crust pieces are continuous in pressure at the listed densities to about 1e-4,
     # so the recomputed dividing densities agree with the printed ones to ~1e-3.
