@@ -17,8 +17,9 @@ from pathlib import Path
 import numpy as np
 
 from . import units
-from .eos import EquationOfState, polytrope, read_piecewise_polytrope
+from .eos import EquationOfState, central_enthalpy, polytrope, read_piecewise_polytrope
 from .errors import ConfigError, InputError
+from .exterior import star_columns
 from .sequence import analyse_sequence
 from .structure import StepControl, solve_interiors
 
@@ -219,7 +220,6 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
     """
     from .eos import EOSStack
     from .runfile import STAR_DATASETS
-    from .sweep import _columns_from_interiors, central_enthalpy
 
     values = np.asarray(values, dtype=float)
     n, n_stars = stop - start, values.size
@@ -249,7 +249,7 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
     stack = EOSStack(members)
     member = np.repeat(np.arange(len(members)), n_stars)
     with np.errstate(all="ignore"):
-        cols = _columns_from_interiors(None, solve_interiors(stack.bind(member), np.concatenate(h_rows),
+        cols = star_columns(solve_interiors(stack.bind(member), np.concatenate(h_rows),
                                                              control=control))
     guesses, widths, analyses = [], [], []
     for k, row in enumerate(rows):

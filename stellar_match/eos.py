@@ -46,6 +46,7 @@ __all__ = [
     "from_table",
     "incompressible",
     "SLY_CRUST",
+    "central_enthalpy",
     "READ_CORE_DIVIDING_DENSITIES",
 ]
 
@@ -754,3 +755,32 @@ class BoundEOSStack:
 
     def enthalpy_of_density(self, rho):
         return self._per_star("enthalpy_of_density", rho)
+
+
+def central_enthalpy(eos: EquationOfState, quantity: str, values) -> np.ndarray:
+    """Central log-enthalpies for central densities (g/cm^3) or pressures (dyn/cm^2).
+
+    Raises
+    ------
+    InputError
+        For values outside a table's range or the wrong axis for the EOS.
+    """
+    values = np.asarray(values, dtype=float)
+    if np.any(~np.isfinite(values) | (values <= 0)):
+        raise InputError(f"{quantity} values must be positive and finite", key=f"sweep.{quantity}")
+    if quantity == "central_density":
+        h = eos.enthalpy_of_density(units.density_to_geometric(values))
+    elif quantity == "central_pressure":
+        h = eos.enthalpy_of_pressure(units.pressure_to_geometric(values))
+    else:
+        raise ValueError(f"unknown sweep quantity {quantity!r}")
+    if np.any(h > eos.h_max * (1 + 1e-12)):
+        top = values[np.argmax(h)]
+        unit = "g/cm3" if quantity == "central_density" else "dyn/cm2"
+        lo, hi = getattr(eos, "table_density_range", (np.nan, np.nan))
+        raise InputError(
+            f"{top:.4g} {unit} lies beyond the table of EOS {eos.name!r} "
+            f"(rest-mass density up to {hi:.4g} g/cm3)",
+            key=f"sweep.{quantity}",
+        )
+    return h

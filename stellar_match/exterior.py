@@ -32,6 +32,7 @@ __all__ = [
     "SurfaceMatch",
     "match_surface",
     "BUCHDAHL_COMPACTNESS",
+    "star_columns",
 ]
 
 #: Largest 2GM/(Rc^2) of any static perfect-fluid star, 8/9 (Buchdahl 1959,
@@ -132,3 +133,27 @@ def match_surface(mass_km, radius_km, central_enthalpy) -> SurfaceMatch:
         below_buchdahl=compactness < BUCHDAHL_COMPACTNESS,
         photon_sphere_outside=r < 3.0 * m,
     )
+
+
+def star_columns(interiors) -> dict[str, np.ndarray]:
+    """Match solved interiors (``structure.StarInteriors``) and give the run-file columns.
+
+    Returns the per-star datasets of ``runfile.STAR_DATASETS`` (all but
+    ``stable``) in their physical units: Msun, km, g/cm^3, dyn/cm^2, cm/s^2, g cm^2.
+    """
+    match = match_surface(interiors.mass, interiors.radius, interiors.central_enthalpy)
+    return {
+        "central_density": units.density_from_geometric(interiors.central_density),
+        "central_energy_density": units.density_from_geometric(interiors.central_energy_density),
+        "central_pressure": units.pressure_from_geometric(interiors.central_pressure),
+        "mass": units.mass_from_geometric(interiors.mass),
+        "radius": np.asarray(interiors.radius, dtype=float),
+        "baryon_mass": units.mass_from_geometric(interiors.baryon_mass),
+        "compactness": match.compactness,
+        "surface_redshift": match.surface_redshift,
+        "surface_gravity": match.surface_gravity,
+        "love_number_k2": interiors.love_number_k2,
+        "tidal_deformability": interiors.tidal_deformability,
+        "moment_of_inertia": interiors.moment_of_inertia * units.MOMENT_OF_INERTIA_GEOM_TO_CGS,
+        "binding_energy": units.mass_from_geometric(interiors.baryon_mass - interiors.mass),
+    }

@@ -77,15 +77,16 @@ def task_stars(config, task: Task) -> tuple[int, int]:
 def run_task(config, task: Task) -> dict[str, np.ndarray]:
     """Compute one task: a pure function of (config, task)."""
     from .ensemble import solve_members
+    from .eos import central_enthalpy
+    from .exterior import star_columns
     from .structure import DEFAULT_STEPS, solve_interiors
-    from .sweep import _columns_from_interiors, central_enthalpy
 
     control = DEFAULT_STEPS.scaled(config.solver.step_scale)
     values = config.axis.values
     if task.section == "eos":
         eos = config.eos[task.block].build()
         h = central_enthalpy(eos, config.axis.quantity, values[task.start : task.stop])
-        return _columns_from_interiors(eos, solve_interiors(eos, h, control=control))
+        return star_columns(solve_interiors(eos, h, control=control))
     spec = config.ensembles[task.block]
     return solve_members(spec, task.start, task.stop, config.axis.quantity, values, control)
 

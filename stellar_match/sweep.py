@@ -17,9 +17,9 @@ import numpy as np
 
 from . import units
 from .config import SweepConfig, load_config
-from .eos import EquationOfState
+from .eos import EquationOfState, central_enthalpy
 from .errors import ConfigError, InputError, RunFileError
-from .exterior import match_surface
+from .exterior import star_columns
 from .runfile import STAR_DATASETS, TARGET_DATASETS, RunFileWriter
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
@@ -63,54 +63,6 @@ class MemorySink:
         return EOSSequence(name, m["kind"], m["parameters"], cols, m["summary"], m["table_sha256"], groups)
 
 
-def central_enthalpy(eos: EquationOfState, quantity: str, values) -> np.ndarray:
-    """Central log-enthalpies for central densities (g/cm^3) or pressures (dyn/cm^2).
-
-    Raises
-    ------
-    InputError
-        For values outside a table's range or the wrong axis for the EOS.
-    """
-    values = np.asarray(values, dtype=float)
-    if np.any(~np.isfinite(values) | (values <= 0)):
-        raise InputError(f"{quantity} values must be positive and finite", key=f"sweep.{quantity}")
-    if quantity == "central_density":
-        h = eos.enthalpy_of_density(units.density_to_geometric(values))
-    elif quantity == "central_pressure":
-        h = eos.enthalpy_of_pressure(units.pressure_to_geometric(values))
-    else:
-        raise ValueError(f"unknown sweep quantity {quantity!r}")
-    if np.any(h > eos.h_max * (1 + 1e-12)):
-        top = values[np.argmax(h)]
-        unit = "g/cm3" if quantity == "central_density" else "dyn/cm2"
-        lo, hi = getattr(eos, "table_density_range", (np.nan, np.nan))
-        raise InputError(
-            f"{top:.4g} {unit} lies beyond the table of EOS {eos.name!r} "
-            f"(rest-mass density up to {hi:.4g} g/cm3)",
-            key=f"sweep.{quantity}",
-        )
-    return h
-
-
-def _columns_from_interiors(eos: EquationOfState, interiors) -> dict[str, np.ndarray]:
-    match = match_surface(interiors.mass, interiors.radius, interiors.central_enthalpy)
-    return {
-        "central_density": units.density_from_geometric(interiors.central_density),
-        "central_energy_density": units.density_from_geometric(interiors.central_energy_density),
-        "central_pressure": units.pressure_from_geometric(interiors.central_pressure),
-        "mass": units.mass_from_geometric(interiors.mass),
-        "radius": np.asarray(interiors.radius, dtype=float),
-        "baryon_mass": units.mass_from_geometric(interiors.baryon_mass),
-        "compactness": match.compactness,
-        "surface_redshift": match.surface_redshift,
-        "surface_gravity": match.surface_gravity,
-        "love_number_k2": interiors.love_number_k2,
-        "tidal_deformability": interiors.tidal_deformability,
-        "moment_of_inertia": interiors.moment_of_inertia * units.MOMENT_OF_INERTIA_GEOM_TO_CGS,
-        "binding_energy": units.mass_from_geometric(interiors.baryon_mass - interiors.mass),
-    }
-
-
 def solve_stars(
     eos: EquationOfState,
     *,
@@ -141,7 +93,7 @@ def solve_stars(
     quantity = "central_density" if central_density is not None else "central_pressure"
     values = central_density if central_density is not None else central_pressure
     h = central_enthalpy(eos, quantity, np.atleast_1d(values))
-    return _columns_from_interiors(eos, solve_interiors(eos, h, control=control))
+    return star_columns(solve_interiors(eos, h, control=control))
 
 
 def sweep_eos(
@@ -192,7 +144,7 @@ def sweep_eos(
     def chunks():
         for start in range(0, h_all.size, chunk_size):
             h = h_all[start : start + chunk_size]
-            cols = _columns_from_interiors(eos, solve_interiors(eos, h, control=control))
+            cols = star_columns(solve_interiors(eos, h, control=control))
             if progress is not None:
                 progress(h.size)
             yield cols
