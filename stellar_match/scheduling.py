@@ -3,7 +3,7 @@
 A config is cut into *tasks* whose boundaries depend on the config alone:
 chunks of ``[solver] chunk_size`` stars of every ``[[eos]]`` block and
 chunks of ``[solver] member_chunk_size`` members of every ``[[ensemble]]``.
-A task is a pure function of (config, task), so it gives the same bits on
+A task is a pure function of (config, task) -- see :class:`Work` -- so it gives the same bits on
 the main process, on a local process pool or on a Dask cluster, and for any
 number of workers.
 
@@ -29,7 +29,7 @@ import numpy as np
 
 from .errors import InputError, RunFileError
 
-__all__ = ["Task", "plan_tasks", "PartStore", "run_task", "execute", "SCHEDULER_TIMEOUT"]
+__all__ = ["Task", "Work", "plan_tasks", "PartStore", "run_task", "execute", "SCHEDULER_TIMEOUT"]
 
 #: Seconds to wait for a Dask scheduler before giving up with one error line.
 SCHEDULER_TIMEOUT = 10.0
@@ -74,17 +74,31 @@ def task_stars(config, task: Task) -> tuple[int, int]:
     return (task.stop - task.start) * config.axis.values.size, task.stop - task.start
 
 
-def run_task(config, task: Task) -> dict[str, np.ndarray]:
-    """Compute one task: a pure function of (config, task)."""
+@dataclass(frozen=True)
+class Work:
+    """What every task needs: the config and its [[eos]] blocks, built once.
+
+    Building an EOS reads and checks its table; doing that once per run, not
+    once per chunk, keeps the table I/O out of the tasks.  Workers receive
+    this object once (pool initializer, or scattered to a Dask cluster).
+    """
+
+    config: object
+    eos: tuple
+
+
+def run_task(work: Work, task: Task) -> dict[str, np.ndarray]:
+    """Compute one task: a pure function of (work, task)."""
     from .ensemble import solve_members
     from .eos import central_enthalpy
     from .exterior import star_columns
     from .structure import DEFAULT_STEPS, solve_interiors
 
+    config = work.config
     control = DEFAULT_STEPS.scaled(config.solver.step_scale)
     values = config.axis.values
     if task.section == "eos":
-        eos = config.eos[task.block].build()
+        eos = work.eos[task.block]
         h = central_enthalpy(eos, config.axis.quantity, values[task.start : task.stop])
         return star_columns(solve_interiors(eos, h, control=control))
     spec = config.ensembles[task.block]
@@ -160,31 +174,31 @@ def _atomic_write_text(path: Path, text: str) -> None:
 
 # --- executors -----------------------------------------------------------------
 
-_WORKER_CONFIG = None  # set once per local worker process by the pool initializer
+_WORKER_WORK = None  # set once per local worker process by the pool initializer
 
 
-def _init_worker(config) -> None:
-    global _WORKER_CONFIG
-    _WORKER_CONFIG = config
+def _init_worker(work: Work) -> None:
+    global _WORKER_WORK
+    _WORKER_WORK = work
 
 
 def _worker_run(task: Task):
-    return task, run_task(_WORKER_CONFIG, task)
+    return task, run_task(_WORKER_WORK, task)
 
 
-def _serial(config, tasks: list[Task]) -> Iterator[tuple[Task, dict]]:
+def _serial(work: Work, tasks: list[Task]) -> Iterator[tuple[Task, dict]]:
     for task in tasks:
-        yield task, run_task(config, task)
+        yield task, run_task(work, task)
 
 
-def _local_pool(config, tasks: list[Task], workers: int) -> Iterator[tuple[Task, dict]]:
+def _local_pool(work: Work, tasks: list[Task], workers: int) -> Iterator[tuple[Task, dict]]:
     """Tasks on ``workers`` local processes; a pool whose worker died is restarted."""
     pending = list(tasks)
     restarts = 0
     while pending:
         ctx = mp.get_context("fork" if "fork" in mp.get_all_start_methods() else "spawn")
         with cf.ProcessPoolExecutor(max_workers=workers, mp_context=ctx, initializer=_init_worker,
-                                    initargs=(config,)) as pool:
+                                    initargs=(work,)) as pool:
             window = 4 * workers
             queue = list(pending)
             running: dict[cf.Future, Task] = {}
@@ -206,7 +220,7 @@ def _local_pool(config, tasks: list[Task], workers: int) -> Iterator[tuple[Task,
                 continue  # the unfinished tasks stay pending and go to a new pool
 
 
-def _dask(config, tasks: list[Task], address: str, timeout: float) -> Iterator[tuple[Task, dict]]:
+def _dask(work: Work, tasks: list[Task], address: str, timeout: float) -> Iterator[tuple[Task, dict]]:
     """Tasks on an existing Dask distributed cluster (``dask.distributed.Client``)."""
     try:
         from dask.distributed import Client, as_completed
@@ -223,7 +237,7 @@ def _dask(config, tasks: list[Task], address: str, timeout: float) -> Iterator[t
         raise InputError(f"cannot reach the Dask scheduler at {address} within {timeout:g} s ({exc})",
                          key="--scheduler") from None
     try:
-        shared = client.scatter(config, broadcast=True)
+        shared = client.scatter(work, broadcast=True)
         window = max(8, 4 * max(1, len(client.scheduler_info().get("workers", {}))))
         queue = list(tasks)
         futures = {}
@@ -246,7 +260,7 @@ def _dask(config, tasks: list[Task], address: str, timeout: float) -> Iterator[t
         client.close()
 
 
-def execute(config, tasks: list[Task], *, workers: int = 1, scheduler: str | None = None,
+def execute(work: Work, tasks: list[Task], *, workers: int = 1, scheduler: str | None = None,
             timeout: float | None = None) -> Iterable[tuple[Task, dict]]:
     """Run ``tasks``, yielding (task, arrays) in completion order.
 
@@ -261,10 +275,10 @@ def execute(config, tasks: list[Task], *, workers: int = 1, scheduler: str | Non
     """
     timeout = SCHEDULER_TIMEOUT if timeout is None else timeout
     if scheduler:
-        return _dask(config, tasks, scheduler, timeout)
+        return _dask(work, tasks, scheduler, timeout)
     if workers <= 1 or len(tasks) <= 1:
-        return _serial(config, tasks)
-    return _local_pool(config, tasks, workers)
+        return _serial(work, tasks)
+    return _local_pool(work, tasks, workers)
 
 
 ProgressFn = Callable[[int, int], None]

@@ -305,7 +305,7 @@ def run_config(
     bit, for any number of workers, on Dask, and after a resume.
     """
     from . import __version__
-    from .scheduling import PartStore, execute, plan_tasks, task_stars
+    from .scheduling import PartStore, Work, execute, plan_tasks, task_stars
 
     if not isinstance(config, SweepConfig):
         config = load_config(config)
@@ -342,7 +342,7 @@ def run_config(
             if store.done(t):
                 progress(*task_stars(config, t))
     try:
-        for task, arrays in execute(config, todo, workers=workers, scheduler=scheduler):
+        for task, arrays in execute(Work(config, tuple(built)), todo, workers=workers, scheduler=scheduler):
             store.save(task, arrays)
             if progress is not None:
                 progress(*task_stars(config, task))
