@@ -20,7 +20,7 @@ from . import units
 from .eos import EquationOfState, central_enthalpy, polytrope, read_piecewise_polytrope
 from .errors import ConfigError, InputError
 from .exterior import star_columns
-from .sequence import analyse_sequence
+from .sequence import analyse_sequence, refine_maxima
 from .structure import StepControl, solve_interiors
 
 __all__ = ["EnsembleSpec", "ENSEMBLE_KINDS", "STATUS_MEANING", "MEMBER_SUMMARIES", "solve_members"]
@@ -300,28 +300,20 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
 def _refine_maxima(stack, guesses, widths, control) -> dict[int, tuple[float, float, float]]:
     """Refine every member's maximum together: {member: (ln h_max, M_max km, R km)}.
 
-    Each pass solves five stars per member across +-width around its estimate
-    in one stacked batch and moves the estimate to the vertex of the fitted
-    parabola; the width shrinks 8-fold per pass (the single-EOS refinement of
-    :mod:`stellar_match.sequence`, done for all members at once).
+    The single-EOS refinement (:func:`stellar_match.sequence.refine_maxima`)
+    with all members' trial stars in one stacked batch per pass.
     """
     if not guesses:
         return {}
     ks = np.array([k for k, _ in guesses])
-    x = np.array([g for _, g in guesses])
-    w = np.array(widths) * 0.5
-    offsets = np.linspace(-1.0, 1.0, 5)
-    # M - M_max ~ (x - x*)^2: after p passes the location is known to ~w 8^-p (width
-    # w from the sample spacing), so the mass to ~(w 8^-p)^2; stop below 1e-9.
-    passes = int(np.clip(np.ceil(np.log(max(w.max(), 1e-12) / 3e-5) / np.log(8.0)), 1, 5))
-    for _ in range(passes):
-        xs = x[:, None] + w[:, None] * offsets[None, :]
-        r = solve_interiors(stack.bind(np.repeat(ks, 5)), np.exp(xs).ravel(), control=control, response=False)
-        m = r.mass.reshape(-1, 5)
-        for i in range(ks.size):
-            c2, c1, _ = np.polyfit(offsets * w[i], m[i], 2)
-            if c2 < 0 and np.all(np.isfinite(m[i])):
-                x[i] += float(np.clip(-c1 / (2 * c2), -w[i], w[i]))
-        w /= 8.0
-    final = solve_interiors(stack.bind(ks), np.exp(x), control=control, response=False)
-    return {int(k): (float(x[i]), float(final.mass[i]), float(final.radius[i])) for i, k in enumerate(ks)}
+
+    def solve_mass(which, xs):
+        return solve_interiors(stack.bind(ks[which]), np.exp(xs), control=control, response=False).mass
+
+    start = np.array([g for _, g in guesses])
+    x = refine_maxima(solve_mass, start, np.array(widths) * 0.5)
+    x = np.where(np.isfinite(x), x, start)  # no settled refinement: the vertex of the samples
+    ok = np.isfinite(x)
+    final = solve_interiors(stack.bind(ks[ok]), np.exp(x[ok]), control=control, response=False)
+    return {int(k): (float(xk), float(m), float(r))
+            for k, xk, m, r in zip(ks[ok], x[ok], final.mass, final.radius, strict=True)}

@@ -31,7 +31,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["SequenceAnalysis", "analyse_sequence", "EOSSequence", "chirp_mass", "lambda_tilde"]
+__all__ = ["SequenceAnalysis", "analyse_sequence", "refine_maxima", "EOSSequence", "chirp_mass", "lambda_tilde"]
 
 
 @dataclass
@@ -87,35 +87,58 @@ def _slopes(x: np.ndarray, mass: np.ndarray, radius: np.ndarray, solve: SolveFn,
     return (m[n:] - m[:n]) / (hi - lo), (r[n:] - r[:n]) / (hi - lo)
 
 
-def _refine_maximum(x_guess: float, width: float, solve: SolveFn, rtol: float, x_limit: float) -> float:
-    """Vertex of M(x) by repeated local quadratic fits to fresh solves.
+def refine_maxima(solve_mass: Callable[[np.ndarray, np.ndarray], np.ndarray], x_guess, width, *,
+                  rtol: float = 1e-6, x_limit: float = np.inf) -> np.ndarray:
+    """Vertices of several M(x) curves (x = ln h_c) by repeated local quadratic fits to fresh solves.
 
-    Each pass solves five stars across +-width around the estimate and takes
-    the root of the fitted dM/dx; the width shrinks 8-fold per pass.  Near
-    the maximum M - M_max ~ (x - x*)^2, so a location error dx costs a
-    relative mass error of order dx^2: we stop once the fitted parabola
-    says the mass is settled to ``rtol * 1e-3``.  Returns NaN if the fresh
-    solves do not show a maximum.
+    Each pass solves five stars per curve across +-width around its estimate,
+    all curves in one call, and takes the root of each fitted dM/dx; the
+    width shrinks 8-fold per pass.  Near a maximum M - M_max ~ (x - x*)^2,
+    so a location error dx costs a relative mass error of order dx^2: a
+    curve stops once its parabola says the mass is settled to ``rtol * 1e-3``.
+
+    Parameters
+    ----------
+    solve_mass : callable
+        ``solve_mass(curve, x) -> mass`` for arrays of curve indices and x.
+    x_guess, width : array_like, shape (n,)
+        Starting estimates and half-widths of the first pass.
+    rtol : float
+        Relative accuracy goal for the maximum mass.
+    x_limit : float
+        Largest x the solver accepts (the top of a table).
+
+    Returns
+    -------
+    ndarray, shape (n,)
+        The located maxima; NaN where the fresh solves show no maximum.
     """
-    x = x_guess
+    x = np.array(x_guess, dtype=float, ndmin=1)
+    w = np.array(width, dtype=float, ndmin=1)
+    offsets = np.linspace(-1.0, 1.0, 5)
+    active = np.ones(x.size, dtype=bool)
     for _ in range(8):
-        xs = np.minimum(x + width * np.linspace(-1.0, 1.0, 5), x_limit)
-        if np.unique(xs).size < 3:
-            return float("nan")
-        m, _ = solve(np.exp(xs))
-        if not np.all(np.isfinite(m)):
-            return float("nan")
-        c2, c1, c0 = np.polyfit(xs - x, m, 2)
-        if c2 >= 0:  # not a maximum on this scale: widen the view instead
-            width *= 2.0
-            continue
-        shift = float(np.clip(-c1 / (2 * c2), -width, width))
-        x = x + shift
-        settled = abs(c2) * (width / 8.0) ** 2 < rtol * 1e-3 * abs(c0)
-        width /= 8.0
-        if settled and abs(shift) < width * 8.0:
-            return x
-    return x if width < 1e-3 else float("nan")
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
+            break
+        xs = np.minimum(x[idx, None] + w[idx, None] * offsets[None, :], x_limit)
+        m = np.asarray(solve_mass(np.repeat(idx, 5), xs.ravel())).reshape(-1, 5)
+        for j, i in enumerate(idx):
+            if np.unique(xs[j]).size < 3 or not np.all(np.isfinite(m[j])):
+                x[i], active[i] = np.nan, False
+                continue
+            c2, c1, c0 = np.polyfit(xs[j] - x[i], m[j], 2)
+            if c2 >= 0:  # not a maximum on this scale: widen the view instead
+                w[i] *= 2.0
+                continue
+            shift = float(np.clip(-c1 / (2 * c2), -w[i], w[i]))
+            x[i] += shift
+            settled = abs(c2) * (w[i] / 8.0) ** 2 < rtol * 1e-3 * abs(c0)
+            w[i] /= 8.0
+            if settled and abs(shift) < w[i] * 8.0:
+                active[i] = False
+    x[active & (w >= 1e-3)] = np.nan  # never settled
+    return x
 
 
 def analyse_sequence(
@@ -191,7 +214,8 @@ def analyse_sequence(
         if solve is None:  # the caller refines (ensembles refine all members at once)
             x_max, status = guess, "found (vertex of the samples, not refined)"
         else:
-            x_max = _refine_maximum(guess, width, solve, rtol, x_limit)
+            x_max = float(refine_maxima(lambda _, xs: solve(np.exp(xs))[0], [guess], [width],
+                                        rtol=rtol, x_limit=x_limit)[0])
             if not np.isfinite(x_max):
                 x_max, status = float(x[j]), "found (largest sample; refinement did not converge)"
     elif np.all(rising):
