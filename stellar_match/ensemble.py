@@ -20,7 +20,7 @@ from . import units
 from .eos import EquationOfState, central_enthalpy, polytrope, read_piecewise_polytrope
 from .errors import ConfigError, InputError
 from .exterior import star_columns
-from .sequence import analyse_sequence, refine_maxima
+from .sequence import analyse_sequence, refine_maxima, value_on_stable_branch
 from .structure import StepControl, solve_interiors
 
 __all__ = ["EnsembleSpec", "ENSEMBLE_KINDS", "STATUS_MEANING", "MEMBER_SUMMARIES", "solve_members"]
@@ -187,22 +187,6 @@ def _read_members(path: Path, names: tuple[str, ...], source: str, key: str) -> 
     return np.array(rows), hashlib.sha256(raw).hexdigest()
 
 
-def _interpolate_at(mass, values, stable, target=1.4) -> float:
-    """``values`` at ``target`` Msun by cubic interpolation along the stable branch."""
-    from scipy.interpolate import CubicSpline
-
-    m, v = mass[stable], values[stable]
-    if m.size < 2 or not (m.min() <= target <= m.max()):
-        return float("nan")
-    order = np.argsort(m)
-    m, v = m[order], v[order]
-    keep = np.concatenate([[True], np.diff(m) > 0])
-    m, v = m[keep], v[keep]
-    if m.size < 4:
-        return float(np.interp(target, m, v))
-    return float(CubicSpline(m, v)(target))
-
-
 def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, values,
                   control: StepControl) -> dict[str, np.ndarray]:
     """Solve members ``start:stop`` over the sweep: 2-D per-star arrays and 1-D summaries.
@@ -283,11 +267,12 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
             _, _, rho = eos.state(np.array([h_top]))
             out["max_mass_central_density"][row] = units.density_from_geometric(rho[0])
         m = out["mass"][row]
-        out["radius_at_1.4"][row] = _interpolate_at(m, out["radius"][row], a.stable)
+        out["radius_at_1.4"][row] = value_on_stable_branch(m, out["radius"][row], a.stable, 1.4, cubic=True)
         # Lambda spans orders of magnitude along a branch: interpolate its logarithm
         with np.errstate(divide="ignore", invalid="ignore"):
             log_lam = np.log(out["tidal_deformability"][row])
-        out["tidal_deformability_at_1.4"][row] = np.exp(_interpolate_at(m, log_lam, a.stable))
+        out["tidal_deformability_at_1.4"][row] = np.exp(value_on_stable_branch(m, log_lam, a.stable, 1.4,
+                                                                               cubic=True))
         if not a.stable.any():
             out["status"][row] = 3
         elif not out["causal"][row]:

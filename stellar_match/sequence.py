@@ -31,7 +31,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["SequenceAnalysis", "analyse_sequence", "refine_maxima", "EOSSequence", "chirp_mass", "lambda_tilde"]
+__all__ = ["SequenceAnalysis", "analyse_sequence", "refine_maxima", "value_on_stable_branch", "EOSSequence", "chirp_mass", "lambda_tilde"]
 
 
 @dataclass
@@ -293,19 +293,34 @@ class EOSSequence:
         return np.asarray(self.columns["stable"], dtype=bool)
 
 
-def interpolate_on_stable_branch(seq: EOSSequence, mass: float, column: str) -> float:
-    """Value of ``column`` at gravitational mass ``mass`` (Msun) on the stable branch.
+def value_on_stable_branch(mass, values, stable, target: float, *, cubic: bool = False) -> float:
+    """``values`` at gravitational mass ``target`` by interpolation along the stable stars.
 
-    Linear interpolation between the stable stars bracketing ``mass``; NaN
-    when the stable branch does not reach it.  For exact values at a mass,
-    solve at that mass instead (see the targets of a sweep).
+    Linear between the two stable stars bracketing ``target``, or a cubic
+    spline in M through all of them (``cubic``; linear below four stars).
+    NaN when the stable branch does not reach ``target``.  For exact values
+    at a mass, solve at that mass instead (see the targets of a sweep).
     """
-    st = seq.stable
-    m = np.asarray(seq["mass"])[st]
-    if m.size < 2 or not (m.min() <= mass <= m.max()):
+    st = np.asarray(stable, dtype=bool)
+    m, v = np.asarray(mass, dtype=float)[st], np.asarray(values, dtype=float)[st]
+    if m.size < 2 or not (m.min() <= target <= m.max()):
         return float("nan")
     order = np.argsort(m)
-    return float(np.interp(mass, m[order], np.asarray(seq[column])[st][order]))
+    m, v = m[order], v[order]
+    if not cubic:
+        return float(np.interp(target, m, v))
+    from scipy.interpolate import CubicSpline
+
+    keep = np.concatenate([[True], np.diff(m) > 0])
+    m, v = m[keep], v[keep]
+    if m.size < 4:
+        return float(np.interp(target, m, v))
+    return float(CubicSpline(m, v)(target))
+
+
+def interpolate_on_stable_branch(seq: EOSSequence, mass: float, column: str) -> float:
+    """Value of ``column`` of a sequence at ``mass`` (Msun), linear along the stable branch."""
+    return value_on_stable_branch(seq["mass"], seq[column], seq.stable, mass)
 
 
 def chirp_mass(m1, m2):
