@@ -31,7 +31,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-__all__ = ["SequenceAnalysis", "analyse_sequence", "refine_maxima", "value_on_stable_branch", "EOSSequence", "chirp_mass", "lambda_tilde"]
+__all__ = [
+    "SequenceAnalysis", "analyse_sequence", "refine_maxima", "value_on_stable_branch", "EOSSequence",
+    "chirp_mass", "lambda_tilde",
+]
 
 
 @dataclass
