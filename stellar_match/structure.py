@@ -47,7 +47,6 @@ from .errors import InputError
 
 __all__ = [
     "RungeKuttaTableau",
-    "CLASSIC_RK4",
     "DORMAND_PRINCE_5",
     "StarInteriors",
     "central_series",
@@ -83,15 +82,6 @@ class RungeKuttaTableau:
     a: np.ndarray
     b: np.ndarray
 
-
-#: The classical fourth-order method (Kutta 1901).
-CLASSIC_RK4 = RungeKuttaTableau(
-    name="rk4",
-    order=4,
-    c=np.array([0.0, 0.5, 0.5, 1.0]),
-    a=np.array([[0, 0, 0, 0], [0.5, 0, 0, 0], [0, 0.5, 0, 0], [0, 0, 1.0, 0]], dtype=float),
-    b=np.array([1, 2, 2, 1], dtype=float) / 6.0,
-)
 
 #: Fifth-order solution of Dormand & Prince (1980, J. Comp. Appl. Math. 6, 19),
 #: Table 2; the same coefficients as scipy's RK45.  Its last stage only feeds
