@@ -118,9 +118,12 @@ class EquationOfState(ABC):
             Geometric units, km^-2.
         """
         h = np.asarray(h, dtype=float)
-        idx = self.piece_index(h)
-        coeff = {k: v[idx] for k, v in self.piece_arrays().items()}
-        return self.state_from_coefficients(h, coeff)
+        return self.state_from_coefficients(h, self.coefficients_at(h))
+
+    def coefficients_at(self, h) -> dict[str, np.ndarray]:
+        """The per-piece coefficients gathered at each log-enthalpy ``h``."""
+        idx = self.piece_index(np.asarray(h, dtype=float))
+        return {k: v[idx] for k, v in self.piece_arrays().items()}
 
     @abstractmethod
     def energy_density_slope(self, h) -> np.ndarray:
@@ -249,15 +252,13 @@ class PiecewisePolytrope(EquationOfState):
 
     def energy_density_slope(self, h):
         h = np.asarray(h, dtype=float)
-        idx = self.piece_index(h)
-        coeff = {k: v[idx] for k, v in self._coeff.items()}
+        coeff = self.coefficients_at(h)
         p, eps, _ = self.state_from_coefficients(h, coeff)
         return self.slope_from_coefficients(p, eps, coeff)
 
     def sound_speed_squared(self, h):
         h = np.asarray(h, dtype=float)
-        idx = self.piece_index(h)
-        coeff = {k: v[idx] for k, v in self._coeff.items()}
+        coeff = self.coefficients_at(h)
         p, eps, _ = self.state_from_coefficients(h, coeff)
         total = eps + p
         return np.where(total > 0, coeff["gamma"] * p / np.where(total > 0, total, 1.0), 0.0)
@@ -741,17 +742,10 @@ class BoundEOSStack:
             out[..., sel] = getattr(self.stack.members[m], fn_name)(values[..., sel])
         return out
 
-    def state(self, h):
-        h = np.asarray(h, dtype=float)
-        idx = self.piece_index(h)
-        return self.state_from_coefficients(h, {k: v[idx] for k, v in self.stack.coeff.items()})
-
-    def energy_density_slope(self, h):
-        h = np.asarray(h, dtype=float)
-        idx = self.piece_index(h)
-        coeff = {k: v[idx] for k, v in self.stack.coeff.items()}
-        p, eps, _ = self.state_from_coefficients(h, coeff)
-        return self.slope_from_coefficients(p, eps, coeff)
+    # the same per-point evaluation as a single EOS, through piece_index / piece_arrays
+    state = EquationOfState.state
+    coefficients_at = EquationOfState.coefficients_at
+    energy_density_slope = PiecewisePolytrope.energy_density_slope
 
     def enthalpy_of_density(self, rho):
         return self._per_star("enthalpy_of_density", rho)
