@@ -33,7 +33,8 @@ from .eos import (
     read_piecewise_polytrope,
 )
 from .errors import ConfigError, InputError, RunFileError, TableError
-from .runfile import STAR_DATASETS, RunFile, read_run
+from .runfile import RunFile, read_run
+from .schema import STAR_DATASETS
 from .sequence import EOSSequence, analyse_sequence
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 from .sweep import run_config, solve_stars, sweep_eos

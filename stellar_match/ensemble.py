@@ -20,38 +20,17 @@ from . import units
 from .eos import EquationOfState, central_enthalpy, polytrope, read_piecewise_polytrope
 from .errors import ConfigError, InputError
 from .exterior import star_columns
+from .schema import MEMBER_STATUS, MEMBER_SUMMARIES, NOT_SOLVED, STAR_DATASETS
 from .sequence import analyse_sequence, refine_maxima, value_on_stable_branch
 from .structure import StepControl, solve_interiors
 
-__all__ = ["EnsembleSpec", "ENSEMBLE_KINDS", "STATUS_MEANING", "MEMBER_SUMMARIES", "solve_members"]
+__all__ = ["EnsembleSpec", "ENSEMBLE_KINDS", "MEMBER_STATUS", "MEMBER_SUMMARIES", "solve_members"]
 
 #: Parameters of each ensemble kind, in the order of the member table.
 ENSEMBLE_KINDS: dict[str, tuple[str, ...]] = {
     "piecewise_polytrope": ("log10_p1", "gamma1", "gamma2", "gamma3"),
     "polytrope": ("K", "gamma"),
 }
-#: Member status codes (dataset ``status``) and their meaning (attribute ``status_meaning``).
-STATUS_MEANING: dict[int, str] = {
-    0: "ok",
-    1: "invalid parameters: the EOS cannot be built",
-    2: "acausal: sound speed above c below the maximum-mass density",
-    3: "no stable star in the sweep range",
-    4: "maximum mass not reached in the sweep range",
-    5: "central density beyond the EOS's validity",
-    6: "solver produced non-finite stars",
-}
-#: Per-member summaries: dataset name -> unit.
-MEMBER_SUMMARIES: dict[str, str] = {
-    "max_mass": "Msun",
-    "max_mass_radius": "km",
-    "max_mass_central_density": "g/cm3",
-    "radius_at_1.4": "km",
-    "tidal_deformability_at_1.4": "1",
-    "causal": "1",
-    "status": "1",
-}
-
-
 @dataclass(frozen=True)
 class EnsembleSpec:
     """One validated ``[[ensemble]]`` block.
@@ -203,12 +182,12 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
         NaN rows and a non-zero ``status``.
     """
     from .eos import EOSStack
-    from .runfile import STAR_DATASETS
 
     values = np.asarray(values, dtype=float)
     n, n_stars = stop - start, values.size
     out: dict[str, np.ndarray] = {k: np.full((n, n_stars), np.nan) for k in STAR_DATASETS if k != "stable"}
     out["stable"] = np.zeros((n, n_stars), dtype=bool)
+    out["star_status"] = np.full((n, n_stars), NOT_SOLVED, dtype=np.int8)
     for k in MEMBER_SUMMARIES:
         out[k] = np.full(n, np.nan)
     out["causal"] = np.zeros(n, dtype=bool)

@@ -156,4 +156,6 @@ def star_columns(interiors) -> dict[str, np.ndarray]:
         "tidal_deformability": interiors.tidal_deformability,
         "moment_of_inertia": interiors.moment_of_inertia * units.MOMENT_OF_INERTIA_GEOM_TO_CGS,
         "binding_energy": units.mass_from_geometric(interiors.baryon_mass - interiors.mass),
+        "error_estimate": np.asarray(interiors.error_estimate, dtype=float),
+        "star_status": np.asarray(interiors.status, dtype=np.int8),
     }

@@ -1,13 +1,14 @@
 """HDF5 run files: one self-describing file per sweep.
 
-Layout (``format`` = "stellar_match.run", ``format_version`` = 1)::
+Layout (``format`` = "stellar_match.run", ``format_version`` = 2; names and units in
+:mod:`stellar_match.schema`)::
 
     /                       attrs: format, format_version, software_version,
                                    created_utc, config_toml
     /eos/<name>/            attrs: kind, parameters (JSON), table_sha256 (tables),
                                    causal, max_sound_speed_squared, max_mass,
                                    max_mass_radius, max_mass_central_density,
-                                   max_mass_status
+                                   max_mass_status, star_status_meaning (JSON)
         <dataset>           1-D, one entry per star in sweep order, attr unit
         targets/            (with [sweep] target_masses) one entry per requested mass,
                             attr status: per-target "found" or why the row is NaN
@@ -33,60 +34,23 @@ import h5py
 import numpy as np
 
 from .errors import RunFileError
+from .schema import (
+    BINARY_DATASETS,
+    FORMAT,
+    FORMAT_VERSION,
+    MEMBER_STATUS,
+    MEMBER_SUMMARIES,
+    STAR_DATASETS,
+    STAR_STATUS,
+    TARGET_DATASETS,
+    dataset_dtype,
+)
 from .sequence import EOSSequence
 
 __all__ = [
     "STAR_DATASETS", "TARGET_DATASETS", "BINARY_DATASETS", "FORMAT", "FORMAT_VERSION",
     "RunFileWriter", "RunFile", "read_run",
 ]
-
-FORMAT = "stellar_match.run"
-FORMAT_VERSION = 1
-
-#: Per-star datasets of every ``/eos/<name>`` group: name -> (unit, meaning).
-STAR_DATASETS: dict[str, tuple[str, str]] = {
-    "central_density": ("g/cm3", "central rest-mass density (incompressible: energy density / c^2)"),
-    "central_energy_density": ("g/cm3", "central energy density / c^2"),
-    "central_pressure": ("dyn/cm2", "central pressure"),
-    "mass": ("Msun", "gravitational mass"),
-    "radius": ("km", "areal radius of the surface p = 0"),
-    "baryon_mass": ("Msun", "baryon (rest) mass"),
-    "compactness": ("1", "GM/(Rc^2)"),
-    "surface_redshift": ("1", "z = (1 - 2GM/(Rc^2))^(-1/2) - 1"),
-    "surface_gravity": ("cm/s2", "GM/(R^2 sqrt(1 - 2GM/(Rc^2)))"),
-    "love_number_k2": ("1", "quadrupolar tidal Love number k2 (Hinderer 2008)"),
-    "tidal_deformability": ("1", "dimensionless tidal deformability Lambda = (2/3) k2 (Rc^2/GM)^5"),
-    "moment_of_inertia": ("g cm2", "slow-rotation moment of inertia (Hartle 1967)"),
-    "binding_energy": ("Msun", "M_baryon - M"),
-    "stable": ("1", "turning-point stability (dM/d rho_c > 0, up to the first maximum)"),
-}
-#: Datasets of the ``targets`` subgroup (one entry per requested mass).
-TARGET_DATASETS: dict[str, str] = {
-    "requested_mass": "Msun",
-    "mass": "Msun",
-    "radius": "km",
-    "central_density": "g/cm3",
-    "surface_redshift": "1",
-    "tidal_deformability": "1",
-    "moment_of_inertia": "g cm2",
-}
-#: Datasets of the ``binaries`` subgroup (one entry per requested pair).
-BINARY_DATASETS: dict[str, str] = {
-    "mass_1": "Msun",
-    "mass_2": "Msun",
-    "chirp_mass": "Msun",
-    "lambda_tilde": "1",
-}
-#: Per-EOS summary attributes and their units.
-SUMMARY_ATTRIBUTES: dict[str, str] = {
-    "causal": "1",
-    "max_sound_speed_squared": "c^2",
-    "max_mass": "Msun",
-    "max_mass_radius": "km",
-    "max_mass_central_density": "g/cm3",
-    "max_mass_status": "",
-}
-
 
 def _software_version() -> str:
     from . import __version__
@@ -145,9 +109,9 @@ class RunFileWriter:
         g.attrs["parameters"] = json.dumps(parameters, default=str)
         if table_sha256:
             g.attrs["table_sha256"] = table_sha256
+        g.attrs["star_status_meaning"] = json.dumps({str(k): v for k, v in STAR_STATUS.items()})
         for col, (unit, meaning) in columns.items():
-            dtype = bool if col == "stable" else float
-            d = g.create_dataset(col, shape=(0,), maxshape=(None,), dtype=dtype, chunks=(4096,))
+            d = g.create_dataset(col, shape=(0,), maxshape=(None,), dtype=dataset_dtype(col), chunks=(4096,))
             d.attrs["unit"] = unit
             d.attrs["description"] = meaning
         self._file.flush()
@@ -187,12 +151,10 @@ class RunFileWriter:
         2-D datasets (members x stars) are created full size and filled part
         by part, so memory does not grow with the number of members.
         """
-        from .ensemble import MEMBER_SUMMARIES, STATUS_MEANING
-
         g = self._file.require_group("ensemble").create_group(spec.name, track_order=True)
         g.attrs["kind"] = spec.kind
         g.attrs["origin"] = json.dumps(spec.origin)
-        g.attrs["status_meaning"] = json.dumps({str(k): v for k, v in STATUS_MEANING.items()})
+        g.attrs["status_meaning"] = json.dumps({str(k): v for k, v in MEMBER_STATUS.items()})
         g.attrs["sweep_quantity"] = axis.quantity
         members = g.create_group("members")
         for j, name in enumerate(spec.parameter_names):
@@ -202,14 +164,13 @@ class RunFileWriter:
         ax.attrs["quantity"] = axis.quantity
         n, m = spec.size, axis.values.size
         chunk_rows = max(1, min(n, 2**16 // max(m, 1)))
+        g.attrs["star_status_meaning"] = json.dumps({str(k): v for k, v in STAR_STATUS.items()})
         for col, (unit, meaning) in STAR_DATASETS.items():
-            dtype = bool if col == "stable" else float
-            d = g.create_dataset(col, shape=(n, m), dtype=dtype, chunks=(chunk_rows, m))
+            d = g.create_dataset(col, shape=(n, m), dtype=dataset_dtype(col), chunks=(chunk_rows, m))
             d.attrs["unit"] = unit
             d.attrs["description"] = meaning
         for col, unit in MEMBER_SUMMARIES.items():
-            dtype = {"causal": bool, "status": np.int8}.get(col, float)
-            d = g.create_dataset(col, shape=(n,), dtype=dtype)
+            d = g.create_dataset(col, shape=(n,), dtype=dataset_dtype(col))
             d.attrs["unit"] = unit
         for task, arrays in parts:
             for col in (*STAR_DATASETS, *MEMBER_SUMMARIES):
@@ -332,6 +293,7 @@ def read_run(path: str | Path) -> RunFile:
                 if isinstance(sg, h5py.Group)
             }
             ga = {k: _attr(v) for k, v in g.attrs.items()}
+            ga.pop("star_status_meaning", None)  # the schema's, see schema.STAR_STATUS
             if "kind" not in ga:
                 raise RunFileError(f"incomplete run file: /eos/{name} has no kind attribute", source=str(path))
             sequences[name] = EOSSequence(

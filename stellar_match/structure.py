@@ -74,6 +74,10 @@ class RungeKuttaTableau:
         Strictly lower-triangular stage coefficients.
     b : ndarray, shape (s,)
         Weights of the propagated solution.
+    e : ndarray, shape (s + 1,)
+        Weights of the local error estimate, b - b_hat of the embedded
+        lower-order solution; the last entry multiplies the derivative at the
+        end of the step (first-same-as-last, so it costs nothing extra).
     """
 
     name: str
@@ -81,11 +85,14 @@ class RungeKuttaTableau:
     c: np.ndarray
     a: np.ndarray
     b: np.ndarray
+    e: np.ndarray
 
 
 #: Fifth-order solution of Dormand & Prince (1980, J. Comp. Appl. Math. 6, 19),
-#: Table 2; the same coefficients as scipy's RK45.  Its last stage only feeds
-#: the embedded estimate, so six stages are evaluated per step.
+#: Table 2; the same coefficients as scipy's RK45 (``e`` as scipy's ``E``, with
+#: the sign flipped).  Its seventh stage is the derivative at the end of the
+#: step, i.e. the first stage of the next one, so the embedded fourth-order
+#: error estimate costs no extra evaluation (one at the surface).
 DORMAND_PRINCE_5 = RungeKuttaTableau(
     name="dopri5",
     order=5,
@@ -101,7 +108,9 @@ DORMAND_PRINCE_5 = RungeKuttaTableau(
         ]
     ),
     b=np.array([35 / 384, 0, 500 / 1113, 125 / 192, -2187 / 6784, 11 / 84]),
+    e=np.array([71 / 57600, 0, -71 / 16695, 71 / 1920, -17253 / 339200, 22 / 525, -1 / 40]),
 )
+
 
 @dataclass(frozen=True)
 class StepControl:
@@ -168,6 +177,12 @@ LOW_COMPACTNESS = 0.006
 REDO_ENVELOPE_FRACTION = 1e-10
 #: ... and with every step length scaled by this (they are few; their envelopes are long).
 REDO_STEP_SCALE = 0.7
+#: Largest accepted error estimate of a star (relative, in M, R and M_b); see solve_interiors.
+DEFAULT_TOLERANCE = 1e-5
+#: Step budget: a star above tolerance has its steps halved at most this many times.
+MAX_REFINEMENTS = 4
+#: Compactness GM/(Rc^2) of every static fluid star is below 4/9 (Buchdahl 1959, Phys. Rev. 116, 1027).
+BUCHDAHL_LIMIT = 4.0 / 9.0
 #: EOS values at a step edge h = 0 are taken at SURFACE_GUARD * h_c instead:
 #: d eps/dh diverges at p = 0 when the outermost piece has Gamma > 2.
 SURFACE_GUARD = 1e-12
@@ -194,6 +209,11 @@ class StarInteriors:
         (None when solved without the response equations).
     moment_of_inertia : ndarray or None
         Slow-rotation moment of inertia I (km^3, i.e. G I / c^2).
+    error_estimate : ndarray or None
+        Estimated relative integration error of M and R (the larger).
+    status : ndarray of int8 or None
+        Per-star quality code (``schema.STAR_STATUS``); the physics values
+        of a star with a non-zero code are NaN.
     """
 
     central_enthalpy: np.ndarray
@@ -206,6 +226,8 @@ class StarInteriors:
     love_number_k2: np.ndarray | None = None
     tidal_deformability: np.ndarray | None = None
     moment_of_inertia: np.ndarray | None = None
+    error_estimate: np.ndarray | None = None
+    status: np.ndarray | None = None
 
 
 def central_series(p_c, eps_c, rho_c, deps_dh_c, x):
@@ -515,6 +537,8 @@ def solve_interiors(
     *,
     control: StepControl = DEFAULT_STEPS,
     response: bool = True,
+    tolerance: float = DEFAULT_TOLERANCE,
+    max_refinements: int = MAX_REFINEMENTS,
 ) -> StarInteriors:
     """Integrate the TOV equations for a batch of central log-enthalpies.
 
@@ -529,11 +553,18 @@ def solve_interiors(
     response : bool, optional
         Also integrate the tidal (k2, Lambda) and slow-rotation (I)
         equations as three more components of the same state.
+    tolerance : float, optional
+        Largest accepted error estimate (relative, in M, R and M_b) of a star.
+    max_refinements : int, optional
+        The step budget: a star above ``tolerance`` is solved again with
+        every step halved, at most this many times.
 
     Returns
     -------
     StarInteriors
-        Central and surface values, geometric units.
+        Central and surface values, geometric units, with every star's
+        ``error_estimate`` and ``status``; stars with a non-zero status
+        have NaN surface values.
 
     Notes
     -----
@@ -543,52 +574,108 @@ def solve_interiors(
     low-mass and unstable configurations near the minimum mass) keep much of
     their radius there, so they are solved again, each on its own grid, with
     the envelope pushed down to REDO_ENVELOPE_FRACTION rho_c and steps scaled
-    by REDO_STEP_SCALE.  The decision
-    depends only on the star itself, never on its batch.
+    by REDO_STEP_SCALE.
+
+    Error control: every step's embedded Dormand-Prince estimate of the
+    local error of (u, v, w), relative to the state, is summed along the
+    star (:func:`_integrate`); with u = R^2, M = v R^3, M_b = w R^3 this
+    bounds the relative errors of R (half the u sum), M and M_b (their sum
+    plus 1.5 times the u sum).  The sum of local estimates of the embedded
+    fourth-order solution overstates the error of the propagated
+    fifth-order one (tests/test_error_control.py measures by how much).
+    Every decision depends only on the star itself, never on its batch.
     """
     h_c = np.atleast_1d(np.asarray(central_enthalpy, dtype=float))
     if np.any(~np.isfinite(h_c) | (h_c <= 0)) or np.any(h_c > eos.h_max * (1 + 1e-12)):
         raise ValueError("central enthalpies must lie in (0, eos.h_max]")
     p_c, eps_c, rho_c = eos.state(h_c)
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):  # puffed stars are redone
-        y = _integrate(eos, h_c, control, response, ENVELOPE_FRACTION)
+    n = h_c.size
+    fraction = np.full(n, ENVELOPE_FRACTION)
+    scale = np.ones(n)
+    with np.errstate(all="ignore"):  # stars that break down are redone or flagged below
+        y, err, steps = _integrate(eos, h_c, control, response, fraction)
+
+        def redo(stars):
+            for factor in np.unique(scale[stars]):
+                sel = stars[scale[stars] == factor]
+                sub = eos.select(sel) if hasattr(eos, "select") else eos
+                y[:, sel], err[:, sel], steps_sel = _integrate(sub, h_c[sel], control.scaled(factor), response,
+                                                               fraction[sel])
+                steps[sel] += steps_sel
+
         puffed = np.flatnonzero(~(y[1] * y[0] >= LOW_COMPACTNESS))  # m/r = v u; also NaN
         if puffed.size:
-            sub = eos.select(puffed) if hasattr(eos, "select") else eos
-            y[:, puffed] = _integrate(sub, h_c[puffed], control.scaled(REDO_STEP_SCALE), response,
-                                      REDO_ENVELOPE_FRACTION)
+            fraction[puffed] = REDO_ENVELOPE_FRACTION
+            scale[puffed] = REDO_STEP_SCALE
+            redo(puffed)
+        for _ in range(max_refinements):
+            above = np.flatnonzero(~(_relative_error(err) <= tolerance))  # NaN too
+            if not above.size:
+                break
+            scale[above] *= 0.5
+            redo(above)
 
-    u, v, w = y[:3]
-    radius = np.sqrt(u)
-    r3 = u * radius
-    mass = v * r3
-    out = StarInteriors(
-        central_enthalpy=h_c,
-        central_pressure=p_c,
-        central_energy_density=eps_c,
-        central_density=rho_c,
-        radius=radius,
-        mass=mass,
-        baryon_mass=w * r3,
-    )
-    if response:
-        compactness = mass / radius
-        # energy-density jump at the surface: y drops by 4 pi R^3 eps(R-) / M
-        # (Damour & Nagar 2009, PRD 80, 084035; Postnikov et al. 2010, eq. 14)
-        y_surface = y[3] - FOUR_PI * r3 * eos.surface_energy_density / mass
-        k2 = love_number_k2(compactness, y_surface)
-        out.love_number_k2 = k2
-        out.tidal_deformability = (2.0 / 3.0) * k2 / compactness**5
-        # exterior frame dragging: omega = Omega - 2J/r^3, J = phi(R)/6 with
-        # phi = C r^5 psi and C = 1/sqrt(1 - 2M/R) making j(R) = 1
-        omega_r, psi_r = y[4], y[5]
-        J = radius**5 * psi_r / np.sqrt(1.0 - 2.0 * compactness) / 6.0
-        out.moment_of_inertia = J / (omega_r + 2.0 * J / r3)
+        u, v, w = y[:3]
+        radius = np.sqrt(u)
+        r3 = u * radius
+        mass = v * r3
+        estimate = _relative_error(err)
+        finite = np.all(np.isfinite(y), axis=0) & np.isfinite(estimate)
+        bound = (mass > 0) & (radius > 0) & (mass / radius < BUCHDAHL_LIMIT)
+        status = np.where(~finite, 2, np.where(~bound, 3, np.where(estimate <= tolerance, 0, 1))).astype(np.int8)
+        bad = status != 0
+        radius[bad] = mass[bad] = r3[bad] = np.nan
+        out = StarInteriors(
+            central_enthalpy=h_c,
+            central_pressure=p_c,
+            central_energy_density=eps_c,
+            central_density=rho_c,
+            radius=radius,
+            mass=mass,
+            baryon_mass=w * r3,
+            error_estimate=estimate,
+            status=status,
+        )
+        if response:
+            compactness = mass / radius
+            # energy-density jump at the surface: y drops by 4 pi R^3 eps(R-) / M
+            # (Damour & Nagar 2009, PRD 80, 084035; Postnikov et al. 2010, eq. 14)
+            y_surface = y[3] - FOUR_PI * r3 * eos.surface_energy_density / mass
+            k2 = love_number_k2(compactness, y_surface)
+            out.love_number_k2 = k2
+            out.tidal_deformability = (2.0 / 3.0) * k2 / compactness**5
+            # exterior frame dragging: omega = Omega - 2J/r^3, J = phi(R)/6 with
+            # phi = C r^5 psi and C = 1/sqrt(1 - 2M/R) making j(R) = 1
+            omega_r, psi_r = y[4], y[5]
+            J = radius**5 * psi_r / np.sqrt(1.0 - 2.0 * compactness) / 6.0
+            out.moment_of_inertia = J / (omega_r + 2.0 * J / r3)
+    out.steps = steps
     return out
 
 
-def _integrate(eos, h_c, control, response, envelope_fraction) -> np.ndarray:
-    """Final state (u, v, w[, y, omega, psi]) at h = 0 of every star, shape (3 or 6, n)."""
+def _relative_error(err: np.ndarray) -> np.ndarray:
+    """Relative error estimate of a star: the largest of those of R, M and M_b.
+
+    ``err`` holds the summed relative local errors of (u, v, w); R = sqrt(u),
+    M = v u^(3/2), M_b = w u^(3/2).
+    """
+    eu, ev, ew = err
+    return np.maximum(0.5 * eu, np.maximum(ev, ew) + 1.5 * eu)
+
+
+def _integrate(eos, h_c, control, response, envelope_fraction) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Integrate every star from its centre to h = 0.
+
+    Returns
+    -------
+    y : ndarray, shape (3 or 6, n)
+        Final state (u, v, w[, y, omega, psi]) at the surface.
+    error : ndarray, shape (3, n)
+        Accumulated local error estimates of ln u, ln v and ln w: the sum
+        over steps of |embedded Dormand-Prince estimate| / |state|.
+    steps : ndarray of int, shape (n,)
+        Steps of non-zero length taken by each star.
+    """
     p_c, eps_c, rho_c = eos.state(h_c)
     x0 = control.start_offset * h_c
     deps_dh = eos.energy_density_slope(h_c)
@@ -611,6 +698,7 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> np.ndarray:
     edges = step_grid(always, density, breaks, h_c, x0, startup_end, h_env, control.startup_growth,
                       control.enthalpy_step)
     h_from, h_to = edges[:-1], edges[1:]
+    steps = np.count_nonzero(h_from > h_to, axis=0)
     piece = eos.piece_index(0.5 * (h_from + h_to))
 
     h_guard = SURFACE_GUARD * h_c
@@ -619,12 +707,29 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> np.ndarray:
     slope = eos.slope_from_coefficients
     tableau = control.tableau
     c, a, b = tableau.c, tableau.a, tableau.b
+    e_stages, e_last = tableau.e[:-1], tableau.e[-1]
     stages = len(b)
     # Stage derivatives live in one (stages, components, stars) array, so each
     # stage's combination sum_j a_ij k_j is a single matrix-vector product.
     k = np.empty((stages,) + y.shape)
     flat = k.reshape(stages, -1)  # the same memory, for one matrix-vector product per stage
     shape = y.shape
+    n = h_c.size
+    # Error estimate of (u, v, w) only: p, eps and rho are continuous across EOS
+    # breakpoints, so the next step's first stage is this step's seventh (FSAL);
+    # the response equations see d eps/dh, which jumps there.
+    error = np.zeros((3, n))
+    carry = np.zeros((3, n))  # this step's estimate, all but its last stage
+    dh_prev = np.zeros(n)
+
+    def rhs(i, hi, yi, coeff):
+        em1 = np.expm1(hi)
+        p, e, r = evaluate(hi, coeff, em1)
+        if response:
+            response_rhs(hi, yi, p, e, r, slope(p, e, coeff), out=k[i], exp_h=1.0 + em1)
+        else:
+            structure_rhs(yi, p, e, r, out=k[i])
+
     for s in range(h_from.shape[0]):
         h0 = h_from[s]
         dh = h_to[s] - h0
@@ -632,12 +737,14 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> np.ndarray:
         coeff = {name: table[idx] for name, table in coeff_tables.items()}
         for i in range(stages):
             yi = y if i == 0 else y + dh * (a[i, :i] @ flat[:i]).reshape(shape)
-            hi = np.maximum(h0 + c[i] * dh, h_guard)
-            em1 = np.expm1(hi)
-            p, e, r = evaluate(hi, coeff, em1)
-            if response:
-                response_rhs(hi, yi, p, e, r, slope(p, e, coeff), out=k[i], exp_h=1.0 + em1)
-            else:
-                structure_rhs(yi, p, e, r, out=k[i])
+            rhs(i, np.maximum(h0 + c[i] * dh, h_guard), yi, coeff)
+            if i == 0 and s > 0:
+                error += np.abs(carry + (dh_prev * e_last) * k[0, :3]) / np.abs(y[:3])
+        np.multiply(dh, np.tensordot(e_stages, k[:, :3], axes=1), out=carry)
+        dh_prev = dh
         y = y + dh * (b @ flat).reshape(shape)
-    return y
+    # the seventh stage of the last step: the derivative at the surface
+    coeff = {name: table[piece[-1]] for name, table in coeff_tables.items()}
+    rhs(0, h_guard, y, coeff)
+    error += np.abs(carry + (dh_prev * e_last) * k[0, :3]) / np.abs(y[:3])
+    return y, error, steps

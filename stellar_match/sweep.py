@@ -20,7 +20,8 @@ from .config import SweepConfig, load_config
 from .eos import EquationOfState, central_enthalpy
 from .errors import ConfigError, InputError, RunFileError
 from .exterior import star_columns
-from .runfile import STAR_DATASETS, TARGET_DATASETS, RunFileWriter
+from .runfile import RunFileWriter
+from .schema import STAR_DATASETS, TARGET_DATASETS
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 

@@ -13,7 +13,7 @@ from test_runfile import SPEC_UNITS
 import stellar_match
 from stellar_match import sweep
 from stellar_match.config import parse_config
-from stellar_match.runfile import STAR_DATASETS
+from stellar_match.schema import NOT_SOLVED, STAR_DATASETS
 
 N_STARS = 20
 AXIS = f"""\
@@ -129,6 +129,8 @@ def test_csv_members_invalid_rows_get_status_1_and_nan_rows(csv_run):
                 row = g[col][bad]
                 if col == "stable":
                     assert not row.any()
+                elif col == "star_status":  # never solved, and saying so
+                    assert np.all(row == NOT_SOLVED)
                 else:
                     assert np.all(np.isnan(row)), col
             for col in ("max_mass", "max_mass_radius", "max_mass_central_density", "radius_at_1.4",

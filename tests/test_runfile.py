@@ -51,6 +51,9 @@ SPEC_UNITS = {
     "tidal_deformability": "1",
     "moment_of_inertia": "g cm2",
     "binding_energy": "Msun",
+    # issue #9 additions: every star's own quality
+    "error_estimate": "1",
+    "star_status": "1",
 }
 SPEC_GROUP_ATTRIBUTES = ("kind", "parameters", "causal", "max_mass", "max_mass_radius", "max_mass_central_density")
 
@@ -74,7 +77,7 @@ def test_root_attributes(tiny_run):
     with h5py.File(path, "r") as f:
         a = f.attrs
         assert a["format"] == "stellar_match.run"
-        assert a["format_version"] == 1
+        assert a["format_version"] == 2  # 2: per-star star_status and error_estimate
         assert a["software_version"] == stellar_match.__version__
         assert a["config_toml"] == cfg.read_text()
         created = dt.datetime.fromisoformat(a["created_utc"])
@@ -125,7 +128,7 @@ def test_datasets_and_units(tiny_run):
             for col, unit in SPEC_UNITS.items():
                 d = g[col]
                 assert d.ndim == 1 and d.shape[0] == N_STARS, col
-                assert d.dtype.kind == "f", col
+                assert d.dtype.kind == ("i" if col == "star_status" else "f"), col
                 assert d.attrs["unit"] == unit, col
                 assert np.all(np.isfinite(d[()])), col
             stable = g["stable"]
@@ -231,8 +234,8 @@ def test_read_run_rejects_a_newer_format_version(tiny_run, tmp_path):
     path = tmp_path / "future.h5"
     path.write_bytes(tiny_run[1].read_bytes())
     with h5py.File(path, "a") as f:
-        f.attrs["format_version"] = 2
-    with pytest.raises(RunFileError, match="format_version 2"):
+        f.attrs["format_version"] = 3
+    with pytest.raises(RunFileError, match="format_version 3"):
         read_run(path)
 
 

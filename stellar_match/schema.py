@@ -1,0 +1,111 @@
+"""The run-file schema: every dataset and attribute name, its unit and meaning.
+
+One module owns the names so that the solver's columns, the writer, the
+reader (and its checks on open), ensembles and exports agree.  Lower layers
+import from here; this module imports nothing of the package.
+
+Format history
+--------------
+1. First release.
+2. Per-star ``status`` (quality code, meanings in :data:`STAR_STATUS`) and
+   ``error_estimate`` in every ``/eos/<name>`` group and ensemble; a star
+   that could not be computed to tolerance is NaN there, never a
+   plausible-looking number.  Version-1 files are still read (they have
+   neither dataset).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = [
+    "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "STAR_DATASETS", "STAR_STATUS", "TARGET_DATASETS",
+    "BINARY_DATASETS", "SUMMARY_ATTRIBUTES", "NOT_SOLVED", "MEMBER_SUMMARIES", "MEMBER_STATUS", "dataset_dtype",
+]
+
+FORMAT = "stellar_match.run"
+FORMAT_VERSION = 2
+#: Format versions this software reads.
+READABLE_VERSIONS = (1, 2)
+
+#: Per-star datasets of every ``/eos/<name>`` group: name -> (unit, meaning).
+STAR_DATASETS: dict[str, tuple[str, str]] = {
+    "central_density": ("g/cm3", "central rest-mass density (incompressible: energy density / c^2)"),
+    "central_energy_density": ("g/cm3", "central energy density / c^2"),
+    "central_pressure": ("dyn/cm2", "central pressure"),
+    "mass": ("Msun", "gravitational mass"),
+    "radius": ("km", "areal radius of the surface p = 0"),
+    "baryon_mass": ("Msun", "baryon (rest) mass"),
+    "compactness": ("1", "GM/(Rc^2)"),
+    "surface_redshift": ("1", "z = (1 - 2GM/(Rc^2))^(-1/2) - 1"),
+    "surface_gravity": ("cm/s2", "GM/(R^2 sqrt(1 - 2GM/(Rc^2)))"),
+    "love_number_k2": ("1", "quadrupolar tidal Love number k2 (Hinderer 2008)"),
+    "tidal_deformability": ("1", "dimensionless tidal deformability Lambda = (2/3) k2 (Rc^2/GM)^5"),
+    "moment_of_inertia": ("g cm2", "slow-rotation moment of inertia (Hartle 1967)"),
+    "binding_energy": ("Msun", "M_baryon - M"),
+    "error_estimate": ("1", "estimated relative integration error of M and R (embedded Dormand-Prince)"),
+    "star_status": ("1", "per-star quality code, 0 = within tolerance (meanings: attribute star_status_meaning)"),
+    "stable": ("1", "turning-point stability (dM/d rho_c > 0, up to the first maximum)"),
+}
+#: Per-star status codes (dataset ``star_status``); every non-zero code comes with NaN physics columns.
+STAR_STATUS: dict[int, str] = {
+    0: "ok: error estimate within tolerance",
+    1: "tolerance not met on the finest grid the step budget allows",
+    2: "integration broke down (non-finite state)",
+    3: "no bound star (mass or radius not positive, or 2GM/(Rc^2) beyond the Buchdahl bound 8/9)",
+    4: "not solved: its ensemble member failed before the solve (see the member status)",
+}
+#: The star status of stars that were never solved.
+NOT_SOLVED = 4
+#: Datasets of the ``targets`` subgroup (one entry per requested mass).
+TARGET_DATASETS: dict[str, str] = {
+    "requested_mass": "Msun",
+    "mass": "Msun",
+    "radius": "km",
+    "central_density": "g/cm3",
+    "surface_redshift": "1",
+    "tidal_deformability": "1",
+    "moment_of_inertia": "g cm2",
+}
+#: Datasets of the ``binaries`` subgroup (one entry per requested pair).
+BINARY_DATASETS: dict[str, str] = {
+    "mass_1": "Msun",
+    "mass_2": "Msun",
+    "chirp_mass": "Msun",
+    "lambda_tilde": "1",
+}
+#: Per-EOS summary attributes and their units.
+SUMMARY_ATTRIBUTES: dict[str, str] = {
+    "causal": "1",
+    "max_sound_speed_squared": "c^2",
+    "max_mass": "Msun",
+    "max_mass_radius": "km",
+    "max_mass_central_density": "g/cm3",
+    "max_mass_status": "",
+}
+#: Per-member summaries of an ensemble: dataset name -> unit.
+MEMBER_SUMMARIES: dict[str, str] = {
+    "max_mass": "Msun",
+    "max_mass_radius": "km",
+    "max_mass_central_density": "g/cm3",
+    "radius_at_1.4": "km",
+    "tidal_deformability_at_1.4": "1",
+    "causal": "1",
+    "status": "1",
+}
+#: Member status codes (dataset ``status`` of an ensemble) and their meaning
+#: (attribute ``status_meaning``).
+MEMBER_STATUS: dict[int, str] = {
+    0: "ok",
+    1: "invalid parameters: the EOS cannot be built",
+    2: "acausal: sound speed above c below the maximum-mass density",
+    3: "no stable star in the sweep range",
+    4: "maximum mass not reached in the sweep range",
+    5: "central density beyond the EOS's validity",
+    6: "solver produced non-finite stars",
+}
+
+
+def dataset_dtype(name: str):
+    """numpy dtype of a per-star or per-member dataset."""
+    return {"stable": bool, "causal": bool, "status": np.int8, "star_status": np.int8}.get(name, float)
