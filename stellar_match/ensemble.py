@@ -217,12 +217,12 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
     guesses, widths, analyses = [], [], []
     for k, row in enumerate(rows):
         sl = slice(k * n_stars, (k + 1) * n_stars)
-        if not (np.all(np.isfinite(cols["mass"][sl])) and np.all(np.isfinite(cols["radius"][sl]))):
+        for name, v in cols.items():
+            out[name][row] = v[sl]
+        if not np.any(cols["star_status"][sl] == 0):
             out["status"][row] = 6
             analyses.append(None)
             continue
-        for name, v in cols.items():
-            out[name][row] = v[sl]
         a = analyse_sequence(h_rows[k], units.mass_to_geometric(cols["mass"][sl]), cols["radius"][sl], None)
         analyses.append(a)
         out["stable"][row] = a.stable
@@ -240,12 +240,17 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
         found = k in x_max
         h_top = float(np.exp(x_max[k][0])) if found else float(np.max(h_rows[k]))
         out["causal"][row] = bool(eos.max_sound_speed_squared(h_top) <= 1.0)
+        m = out["mass"][row]
         if found:
-            out["max_mass"][row] = units.mass_from_geometric(x_max[k][1])
-            out["max_mass_radius"][row] = x_max[k][2]
+            m_max, r_max = units.mass_from_geometric(x_max[k][1]), x_max[k][2]
+            # never lighter than a stable star of the member's own (a refinement that wandered
+            # off, or a fresh solve that missed tolerance): the heaviest stable sample instead
+            heaviest = int(np.argmax(np.where(a.stable, m, -np.inf)))
+            if not m_max >= m[heaviest] * (1.0 - 1e-6):
+                m_max, r_max, h_top = m[heaviest], out["radius"][row][heaviest], float(h_rows[k][heaviest])
+            out["max_mass"][row], out["max_mass_radius"][row] = m_max, r_max
             _, _, rho = eos.state(np.array([h_top]))
             out["max_mass_central_density"][row] = units.density_from_geometric(rho[0])
-        m = out["mass"][row]
         out["radius_at_1.4"][row] = value_on_stable_branch(m, out["radius"][row], a.stable, 1.4, cubic=True)
         # Lambda spans orders of magnitude along a branch: interpolate its logarithm
         with np.errstate(divide="ignore", invalid="ignore"):
@@ -258,6 +263,8 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
             out["status"][row] = 2
         elif not found:
             out["status"][row] = 4
+        elif np.any(out["star_status"][row] != 0):
+            out["status"][row] = 6
     return out
 
 

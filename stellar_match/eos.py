@@ -438,16 +438,21 @@ def read_piecewise_polytrope(
     rho1, rho2 = READ_CORE_DIVIDING_DENSITIES
     if not (np.isfinite(log10_p1) and 30.0 < log10_p1 < 40.0):
         raise InputError(f"log10_p1 = {log10_p1} is outside (30, 40) (log10 of dyn/cm^2)", key="log10_p1")
-    p1 = 10.0 ** float(log10_p1)
     g1, g2, g3 = gammas
-    K1 = p1 / rho1**g1
-    K2 = K1 * rho1 ** (g1 - g2)
-    K3 = K2 * rho2 ** (g2 - g3)
-    crust_K = np.array([k for k, _, _ in SLY_CRUST]) * _C2_CGS  # -> p in dyn/cm^2
+    # Polytropic constants in logarithms, in geometric units: K = p / rho^Gamma
+    # over- or underflows in cgs for stiff pieces (Gamma = 20: rho^Gamma ~ 1e294).
+    ln_d = np.log(units.DENSITY_CGS_TO_GEOM)
+    ln_rho1, ln_rho2 = np.log(rho1) + ln_d, np.log(rho2) + ln_d
+    ln_K1 = float(log10_p1) * np.log(10.0) + np.log(units.PRESSURE_CGS_TO_GEOM) - g1 * ln_rho1
+    ln_K2 = ln_K1 + (g1 - g2) * ln_rho1
+    ln_K3 = ln_K2 + (g2 - g3) * ln_rho2
     crust_g = np.array([g for _, g, _ in SLY_CRUST])
+    crust_K = _geometric_K(np.array([k for k, _, _ in SLY_CRUST]) * _C2_CGS, crust_g)  # p/c^2 -> dyn/cm^2
+    ln_crust_K = np.log(crust_K)
     if abs(g1 - crust_g[-1]) < 1e-12:
         raise InputError("Gamma_1 equals the crust's last Gamma; no joining density", key="gammas")
-    rho_join = (crust_K[-1] / K1) ** (1.0 / (g1 - crust_g[-1]))
+    with np.errstate(over="ignore"):
+        rho_join = float(np.exp((ln_crust_K[-1] - ln_K1) / (g1 - crust_g[-1]) - ln_d))  # g/cm^3
     if not (sly_crust_dividing_densities()[-1] < rho_join < rho1):
         raise InputError(
             f"log10_p1 = {log10_p1} with Gamma_1 = {g1} meets the SLy crust at "
@@ -455,13 +460,16 @@ def read_piecewise_polytrope(
             key="log10_p1",
         )
     lower = np.array([0.0, *sly_crust_dividing_densities(), rho_join, rho1, rho2])
-    K = np.concatenate([crust_K, [K1, K2, K3]])
+    with np.errstate(over="ignore", under="ignore"):
+        K = np.concatenate([crust_K, np.exp([ln_K1, ln_K2, ln_K3])])
+    if not np.all(np.isfinite(K) & (K > 0)):
+        raise InputError(f"gammas {gammas} make a polytropic constant over- or underflow", key="gammas")
     g = np.concatenate([crust_g, gammas])
     return PiecewisePolytrope(
         name=name,
         kind="piecewise_polytrope",
         lower_densities=lower * units.DENSITY_CGS_TO_GEOM,
-        K=_geometric_K(K, g),
+        K=K,
         gamma=g,
         parameters={"log10_p1": float(log10_p1), "gammas": gammas, "crust": "SLy (Read et al. 2009)"},
     )

@@ -102,7 +102,8 @@ MEMBER_STATUS: dict[int, str] = {
     3: "no stable star in the sweep range",
     4: "maximum mass not reached in the sweep range",
     5: "central density beyond the EOS's validity",
-    6: "solver produced non-finite stars",
+    6: "stars not computed to tolerance within the step budget (NaN, see star_status); "
+       "summaries are from the other stars",
 }
 
 

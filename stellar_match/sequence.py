@@ -49,7 +49,8 @@ class SequenceAnalysis:
         dM/d ln h_c of each star, from finite differences along the sequence
         (of extra solves when the sweep has fewer than five stars).
     unstable_modes : ndarray of int
-        Number of unstable radial modes of each star (0 = stable).
+        Number of unstable radial modes of each star (0 = stable; -1 for a
+        star without a result, NaN mass or radius, which is never stable).
     max_enthalpy : float
         Central log-enthalpy of the maximum-mass star, NaN if none.
     max_mass, max_mass_radius : float
@@ -170,17 +171,30 @@ def analyse_sequence(
     -------
     SequenceAnalysis
     """
-    x_limit = float(np.log(h_limit))
     h = np.asarray(central_enthalpy, dtype=float)
+    mass, radius = np.asarray(mass, dtype=float), np.asarray(radius, dtype=float)
+    # Stars the solver could not compute to tolerance are NaN: they take no part
+    # in the analysis and are never stable.
+    good = np.isfinite(mass) & np.isfinite(radius) & (mass > 0)
+    nan = float("nan")
+    if not good.any():
+        return SequenceAnalysis(np.zeros(h.size, bool), np.full(h.size, nan), np.full(h.size, -1), nan, nan, nan,
+                                "no star of the sweep computed to tolerance")
+    if not good.all():
+        sub = analyse_sequence(h[good], mass[good], radius[good], solve, rtol=rtol, h_limit=h_limit)
+        stable = np.zeros(h.size, dtype=bool)
+        slope = np.full(h.size, np.nan)
+        modes = np.full(h.size, -1)
+        stable[good], slope[good], modes[good] = sub.stable, sub.mass_slope, sub.unstable_modes
+        return SequenceAnalysis(stable, slope, modes, sub.max_enthalpy, sub.max_mass, sub.max_mass_radius,
+                                sub.status)
+    x_limit = float(np.log(h_limit))
     order = np.argsort(h)
     hs = h[order]
     keep = np.concatenate([[True], np.diff(hs) > 0])
     x = np.log(hs[keep])
     mu = np.asarray(mass, dtype=float)[order][keep]
     ru = np.asarray(radius, dtype=float)[order][keep]
-    nan = float("nan")
-    if x.size == 0:
-        return SequenceAnalysis(np.zeros(0, bool), np.zeros(0), np.zeros(0, int), nan, nan, nan, "empty sweep")
 
     slope, r_slope = _slopes(x, mu, ru, solve, x_limit)
     rising = slope > 0
@@ -240,6 +254,11 @@ def analyse_sequence(
         else:
             m_max, r_max = solve(np.array([np.exp(x_max)]))
             max_mass, max_radius = float(m_max[0]), float(r_max[0])
+            # the maximum is never lighter than the stable sample it ends (a refinement that
+            # wandered off, or a fresh solve that missed tolerance): take that sample instead
+            if not (max_mass >= mu[j] * (1.0 - rtol)):
+                x_max, max_mass, max_radius = float(x[j]), float(mu[j]), float(ru[j])
+                status = "found (largest sample; the refined maximum was not consistent with it)"
         # samples past the refined maximum on the same branch are unstable
         past = (x > x_max) & (modes == 0) & (x <= x[min(j + 1, x.size - 1)])
         stable_u = stable_u & ~past
@@ -301,10 +320,12 @@ def value_on_stable_branch(mass, values, stable, target: float, *, cubic: bool =
 
     Linear between the two stable stars bracketing ``target``, or a cubic
     spline in M through all of them (``cubic``; linear below four stars).
-    NaN when the stable branch does not reach ``target``.  For exact values
+    NaN when the stable branch (its stars with finite values) does not
+    reach ``target``.  For exact values
     at a mass, solve at that mass instead (see the targets of a sweep).
     """
-    st = np.asarray(stable, dtype=bool)
+    # stars without a value (NaN: not computed to tolerance, or Lambda of a star without one) take no part
+    st = np.asarray(stable, dtype=bool) & np.isfinite(mass) & np.isfinite(values)
     m, v = np.asarray(mass, dtype=float)[st], np.asarray(values, dtype=float)[st]
     if m.size < 2 or not (m.min() <= target <= m.max()):
         return float("nan")
