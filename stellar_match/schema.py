@@ -21,6 +21,7 @@ import numpy as np
 __all__ = [
     "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "STAR_DATASETS", "STAR_STATUS", "TARGET_DATASETS",
     "BINARY_DATASETS", "SUMMARY_ATTRIBUTES", "NOT_SOLVED", "MEMBER_SUMMARIES", "MEMBER_STATUS", "dataset_dtype",
+    "DATASET_SINCE_VERSION",
 ]
 
 FORMAT = "stellar_match.run"
@@ -109,3 +110,8 @@ MEMBER_STATUS: dict[int, str] = {
 def dataset_dtype(name: str):
     """numpy dtype of a per-star or per-member dataset."""
     return {"stable": bool, "causal": bool, "status": np.int8, "star_status": np.int8}.get(name, float)
+
+
+#: Per-star datasets that are not in every readable version: name -> first
+#: format version that has it (all others are in every version).
+DATASET_SINCE_VERSION: dict[str, int] = {"error_estimate": 2, "star_status": 2}
