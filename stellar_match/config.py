@@ -90,12 +90,15 @@ class EOSSpec:
                 return eos_module.read_piecewise_polytrope(self.name, o["log10_p1"], o["gammas"])
             if self.kind == "incompressible":
                 return eos_module.incompressible(self.name, o["energy_density"])
+            _check_table_file(o["path"], self.source, f"{key}.path")
             return eos_module.from_table(self.name, o["path"], o["columns"])
         except ConfigError:
             raise
         except InputError as exc:
-            if exc.source and exc.row is None and exc.message == "table file not found":
-                raise ConfigError(f"table file {exc.source} not found", source=self.source,
+            if exc.source and exc.row is None and not exc.key:
+                # the file as a whole is unusable (unreadable, not text, no header):
+                # the mistake is the path this block gives
+                raise ConfigError(f"{exc.message} (table {exc.source})", source=self.source,
                                   key=f"{key}.path") from None
             if exc.source and not exc.key:  # a table error already names its file and line
                 raise
@@ -104,6 +107,39 @@ class EOSSpec:
             sub = f"{key}.{exc.key}" if exc.key else key
             message = f"{exc.message} (table {exc.source})" if exc.source else exc.message
             raise ConfigError(message, source=self.source, key=sub) from None
+
+
+def _check_table_file(path: Path, source: str, key: str) -> None:
+    """Refuse a table path that is no readable CSV file, naming the config key.
+
+    Checked before the table is read: a FIFO or device would block or read
+    forever, and a folder, an empty file or a binary file would otherwise
+    surface as a puzzling parse error.
+    """
+    import stat
+
+    def fail(message: str) -> ConfigError:
+        return ConfigError(f"table file {path} {message}", source=source, key=key)
+
+    try:
+        mode = path.stat().st_mode
+    except FileNotFoundError:
+        raise fail("not found") from None
+    except OSError as exc:
+        raise fail(f"cannot be read ({exc.strerror})") from None
+    if stat.S_ISDIR(mode):
+        raise fail("is a folder, not a CSV table")
+    if not stat.S_ISREG(mode):
+        raise fail("is not a regular file (a device, pipe or socket)")
+    try:
+        with path.open("rb") as f:
+            head = f.read(8192)
+    except OSError as exc:
+        raise fail(f"cannot be read ({exc.strerror or exc})") from None
+    if not head:
+        raise fail("is empty")
+    if b"\0" in head:  # text never holds NUL bytes; binaries nearly always do
+        raise fail("is a binary file, not a CSV table")
 
 
 @dataclass(frozen=True)
