@@ -10,6 +10,7 @@ import argparse
 import os
 import shutil
 import sys
+import warnings
 from importlib import resources
 from pathlib import Path
 
@@ -262,6 +263,8 @@ def build_parser() -> argparse.ArgumentParser:
         "Schwarzschild metric, and store mass-radius sequences in HDF5 run files.",
     )
     p.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
+    p.add_argument("--show-warnings", action="store_true",
+                   help="print Python warnings (e.g. numpy RuntimeWarnings) on stderr, for debugging")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND", parser_class=_OneLineParser)
 
     s = sub.add_parser("sweep", help="run a sweep config into an HDF5 run file")
@@ -313,6 +316,15 @@ def main(argv: list[str] | None = None) -> int:
         args = parser.parse_args(argv)
     except SystemExit as exc:  # usage errors (one line, status 2), --help and --version (status 0)
         return int(exc.code or 0)
+    with warnings.catch_warnings():
+        # A warning is extra stderr lines: they would break the one-line error contract
+        # and bury the real message.  Python's own -W / PYTHONWARNINGS still apply.
+        if not (args.show_warnings or sys.warnoptions):
+            warnings.simplefilter("ignore")
+        return _run(args)
+
+
+def _run(args) -> int:
     try:
         return args.func(args)
     except InputError as exc:

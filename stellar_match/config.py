@@ -18,6 +18,7 @@ import numpy as np
 
 from . import eos as eos_module
 from .errors import ConfigError, InputError
+from .schema import group_name_problem
 
 __all__ = ["SweepAxis", "EOSSpec", "SolverOptions", "SweepConfig", "load_config", "parse_config"]
 
@@ -29,6 +30,22 @@ _KIND_KEYS = {
     "incompressible": {"energy_density": "number"},
 }
 _DENSITY_KINDS = ("baryon_density", "rest_mass_density")
+
+# Size limits, checked before anything is allocated.  Each is far beyond any
+# real sweep yet keeps the memory a run needs within a few GB: a sweep's
+# columns are held whole for the stability analysis and by read_run (about
+# 130 bytes per star), and a batch of stars solved together takes about
+# 5 kB per star (measured: 10^5 SLy stars in one batch peak at 570 MB).
+#: Central values of one sweep axis (``count`` or the length of ``values``): ~1.3 GB of columns.
+MAX_SWEEP_VALUES = 10**7
+#: Stars an ensemble holds, members x central values (10^6 members x 100
+#: stars, README's largest ensemble; its file is ~13 GB on disk, written in chunks).
+MAX_ENSEMBLE_STARS = 10**8
+#: Stars solved together as one batch: ``chunk_size`` stars of an ``[[eos]]``
+#: block, or ``member_chunk_size`` members times the central values (~2.5 GB).
+MAX_BATCH_STARS = 500_000
+#: Entries of ``target_masses`` and of ``binaries`` (target masses are solved as one batch).
+MAX_TARGETS = 10_000
 
 
 @dataclass(frozen=True)
@@ -73,12 +90,15 @@ class EOSSpec:
                 return eos_module.read_piecewise_polytrope(self.name, o["log10_p1"], o["gammas"])
             if self.kind == "incompressible":
                 return eos_module.incompressible(self.name, o["energy_density"])
+            _check_table_file(o["path"], self.source, f"{key}.path")
             return eos_module.from_table(self.name, o["path"], o["columns"])
         except ConfigError:
             raise
         except InputError as exc:
-            if exc.source and exc.row is None and exc.message == "table file not found":
-                raise ConfigError(f"table file {exc.source} not found", source=self.source,
+            if exc.source and exc.row is None and not exc.key:
+                # the file as a whole is unusable (unreadable, not text, no header):
+                # the mistake is the path this block gives
+                raise ConfigError(f"{exc.message} (table {exc.source})", source=self.source,
                                   key=f"{key}.path") from None
             if exc.source and not exc.key:  # a table error already names its file and line
                 raise
@@ -87,6 +107,39 @@ class EOSSpec:
             sub = f"{key}.{exc.key}" if exc.key else key
             message = f"{exc.message} (table {exc.source})" if exc.source else exc.message
             raise ConfigError(message, source=self.source, key=sub) from None
+
+
+def _check_table_file(path: Path, source: str, key: str) -> None:
+    """Refuse a table path that is no readable CSV file, naming the config key.
+
+    Checked before the table is read: a FIFO or device would block or read
+    forever, and a folder, an empty file or a binary file would otherwise
+    surface as a puzzling parse error.
+    """
+    import stat
+
+    def fail(message: str) -> ConfigError:
+        return ConfigError(f"table file {path} {message}", source=source, key=key)
+
+    try:
+        mode = path.stat().st_mode
+    except FileNotFoundError:
+        raise fail("not found") from None
+    except OSError as exc:
+        raise fail(f"cannot be read ({exc.strerror})") from None
+    if stat.S_ISDIR(mode):
+        raise fail("is a folder, not a CSV table")
+    if not stat.S_ISREG(mode):
+        raise fail("is not a regular file (a device, pipe or socket)")
+    try:
+        with path.open("rb") as f:
+            head = f.read(8192)
+    except OSError as exc:
+        raise fail(f"cannot be read ({exc.strerror or exc})") from None
+    if not head:
+        raise fail("is empty")
+    if b"\0" in head:  # text never holds NUL bytes; binaries nearly always do
+        raise fail("is a binary file, not a CSV table")
 
 
 @dataclass(frozen=True)
@@ -149,7 +202,10 @@ def _fail(source: str, key: str, message: str) -> ConfigError:
 def _number(value: Any, source: str, key: str, *, positive: bool = False) -> float:
     if isinstance(value, bool) or not isinstance(value, int | float):
         raise _fail(source, key, f"needs a number, got {type(value).__name__} {value!r}")
-    value = float(value)
+    try:
+        value = float(value)
+    except OverflowError:  # a TOML integer with hundreds of digits
+        value = math.inf
     if not math.isfinite(value):
         raise _fail(source, key, "needs a finite number")
     if positive and value <= 0:
@@ -182,6 +238,8 @@ def _axis(sweep: dict, source: str) -> SweepAxis:
         vals = spec["values"]
         if not isinstance(vals, list) or not vals:
             raise _fail(source, f"{key}.values", "needs a non-empty list of numbers")
+        if len(vals) > MAX_SWEEP_VALUES:
+            raise _fail(source, f"{key}.values", f"{len(vals)} values; at most {MAX_SWEEP_VALUES} per sweep")
         values = np.array([_number(v, source, f"{key}.values", positive=True) for v in vals])
     else:
         _no_unknown(spec, {"min", "max", "count"}, source, key)
@@ -193,6 +251,8 @@ def _axis(sweep: dict, source: str) -> SweepAxis:
         count = spec["count"]
         if isinstance(count, bool) or not isinstance(count, int) or count < 1:
             raise _fail(source, f"{key}.count", f"needs a whole number >= 1, got {count!r}")
+        if count > MAX_SWEEP_VALUES:
+            raise _fail(source, f"{key}.count", f"{count} is too many central values (at most {MAX_SWEEP_VALUES})")
         if hi < lo:
             raise _fail(source, f"{key}.max", f"max ({hi:g}) is below min ({lo:g})")
         if count == 1 and hi != lo:
@@ -230,8 +290,9 @@ def _eos_spec(index: int, block: Any, source: str, base_dir: Path | None) -> EOS
         if k not in block:
             raise _fail(source, f"{key}.{k}", "missing")
     name, kind = block["name"], block["kind"]
-    if not isinstance(name, str) or not name.strip() or "/" in name or name.startswith("."):
-        raise _fail(source, f"{key}.name", f"needs a non-empty name without '/', got {name!r}")
+    problem = group_name_problem(name)  # the name becomes the run file's /eos/<name> group
+    if problem:
+        raise _fail(source, f"{key}.name", problem)
     if kind not in EOS_KINDS:
         raise _fail(source, f"{key}.kind", f"unknown kind {kind!r} (use one of: {', '.join(EOS_KINDS)})")
     wanted = _KIND_KEYS[kind]
@@ -259,6 +320,24 @@ def _eos_spec(index: int, block: Any, source: str, base_dir: Path | None) -> EOS
     return EOSSpec(index=index, name=name, kind=kind, options=options, source=source)
 
 
+def _check_sizes(specs: list[EOSSpec], ensembles: list, axis: SweepAxis, solver: SolverOptions,
+                 source: str) -> None:
+    """Refuse products of sizes that would exhaust memory, before anything is allocated."""
+    stars = axis.values.size
+    if specs and min(solver.chunk_size, stars) > MAX_BATCH_STARS:
+        raise _fail(source, "solver.chunk_size", f"{solver.chunk_size} stars per batch; at most "
+                    f"{MAX_BATCH_STARS}")
+    for e in ensembles:
+        key = f"ensemble[{e.index}].{'sample.count' if 'sampler' in e.origin else 'members'}"
+        if e.size * stars > MAX_ENSEMBLE_STARS:
+            raise _fail(source, key, f"{e.size} members x {stars} central values = {e.size * stars} stars; "
+                        f"at most {MAX_ENSEMBLE_STARS} per ensemble")
+        if min(solver.member_chunk_size, e.size) * stars > MAX_BATCH_STARS:
+            raise _fail(source, "solver.member_chunk_size",
+                        f"{min(solver.member_chunk_size, e.size)} members x {stars} central values per batch; "
+                        f"at most {MAX_BATCH_STARS} stars (lower member_chunk_size)")
+
+
 def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None = None) -> SweepConfig:
     """Validate config text (see :func:`load_config`)."""
     try:
@@ -276,12 +355,16 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
         tm = sweep["target_masses"]
         if not isinstance(tm, list):
             raise _fail(source, "sweep.target_masses", "needs a list of masses (Msun)")
+        if len(tm) > MAX_TARGETS:
+            raise _fail(source, "sweep.target_masses", f"{len(tm)} masses; at most {MAX_TARGETS}")
         targets = [_number(m, source, "sweep.target_masses", positive=True) for m in tm]
     binaries: list[tuple[float, float]] = []
     if "binaries" in sweep:
         bl = sweep["binaries"]
         if not isinstance(bl, list) or any(not isinstance(b, list) or len(b) != 2 for b in bl):
             raise _fail(source, "sweep.binaries", "needs a list of [m1, m2] pairs (Msun)")
+        if len(bl) > MAX_TARGETS:
+            raise _fail(source, "sweep.binaries", f"{len(bl)} pairs; at most {MAX_TARGETS}")
         binaries = [
             (_number(a, source, "sweep.binaries", positive=True), _number(b, source, "sweep.binaries", positive=True))
             for a, b in bl
@@ -294,6 +377,11 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
         scale = _number(st.get("step_scale", 1.0), source, "solver.step_scale", positive=True)
         if scale > 4:
             raise _fail(source, "solver.step_scale", f"{scale:g} is too coarse to trust (use <= 4)")
+        # Stars that miss the error tolerance are solved again on finer grids by the
+        # solver's own error control, so a tiny scale never buys accuracy; it only
+        # multiplies the time (0.001 with 5 stars ran for minutes).
+        if scale < 0.05:
+            raise _fail(source, "solver.step_scale", f"{scale:g} is finer than ever needed (use >= 0.05)")
         sizes = {}
         for k in ("chunk_size", "member_chunk_size"):
             v = st.get(k, getattr(SolverOptions, k))
@@ -312,10 +400,13 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
     ensembles = [parse_ensemble(i, b, source, base_dir) for i, b in enumerate(ens_blocks)]
     if ensembles and axis.values.size < 5:
         raise _fail(source, f"sweep.{axis.quantity}", "ensembles need at least 5 central values per member")
+    _check_sizes(specs, ensembles, axis, solver, source)
+    # EOS and ensembles live in different groups (/eos, /ensemble): names are unique per kind.
     ens_names: dict[str, int] = {}
     for e in ensembles:
         if e.name in ens_names:
-            raise _fail(source, f"ensemble[{e.index}].name", f"duplicate name {e.name!r}")
+            raise _fail(source, f"ensemble[{e.index}].name",
+                        f"duplicate name {e.name!r} (also ensemble[{ens_names[e.name]}])")
         ens_names[e.name] = e.index
     seen: dict[str, int] = {}
     for s in specs:

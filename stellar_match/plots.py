@@ -228,7 +228,8 @@ def _draw_sequence(ax, seq: EOSSequence, x_key: str, y_key: str, color, marker: 
     x, y, stable = x[ok], y[ok], stable[ok]
     starts = np.flatnonzero(np.concatenate([[True], stable[1:] != stable[:-1]]))
     ends = np.append(starts[1:], x.size)
-    for a, b in zip(starts, ends, strict=True):
+    # no finite star at all (none solved to tolerance): no curve, only the M_max marker if any
+    for a, b in zip(starts, ends, strict=True) if x.size else ():
         run = slice(max(a - 1, 0), b)  # start at the previous run's last star: no gap
         ax.plot(x[run], y[run], color=color, lw=1.9 if stable[a] else 1.3,
                 ls="-" if stable[a] else (0, (4, 2.5)), gid=f"{label}:{'stable' if stable[a] else 'unstable'}")
@@ -304,12 +305,19 @@ def _draw_constraints(ax, constraints: Constraints, handles: list) -> None:
                                  label=c.label))
 
 
+def _largest_finite(values, default: float) -> float:
+    """The largest finite value, or ``default`` when there is none (every star NaN: none solved)."""
+    values = np.asarray(values, dtype=float)
+    values = values[np.isfinite(values)]
+    return float(values.max()) if values.size else default
+
+
 def _mass_radius_limits(sequences, constraints: Constraints | None) -> tuple[tuple, tuple]:
-    m_top = max([float(np.nanmax(s["mass"])) for _, s in sequences] + [0.5])
+    m_top = max([_largest_finite(s["mass"], 0.0) for _, s in sequences] + [0.5])
     r_lo, r_hi = [], []
     for _, s in sequences:
         # stable stars above 0.3 M_max: the light, huge stars would squeeze the interesting part
-        big = s.stable & (np.asarray(s["mass"]) >= 0.3 * float(np.nanmax(s["mass"])))
+        big = s.stable & (np.asarray(s["mass"]) >= 0.3 * _largest_finite(s["mass"], np.inf))
         if not big.any():
             continue
         r_lo.append(float(np.nanmin(np.asarray(s["radius"])[big])))

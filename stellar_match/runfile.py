@@ -34,6 +34,7 @@ import h5py
 import numpy as np
 
 from .errors import RunFileError
+from .runfile_check import check_run_file
 from .schema import (
     BINARY_DATASETS,
     FORMAT,
@@ -219,7 +220,7 @@ class RunFile:
 
     def ensemble_dataset(self, name: str, column: str, members=slice(None)) -> np.ndarray:
         """Read (part of) a 2-D ensemble dataset, members x stars, from the file."""
-        with h5py.File(self.path, "r") as f:
+        with _open_run(self.path) as f:  # checked again: the file may have changed since it was read
             try:
                 return f["ensemble"][name][column][members]
             except KeyError:
@@ -255,60 +256,76 @@ def _attr(v):
     return v
 
 
-def read_run(path: str | Path) -> RunFile:
-    """Read a run file written by :class:`RunFileWriter`.
-
-    Raises
-    ------
-    RunFileError
-        If the file is missing, not HDF5, or not a stellar_match run file.
-    """
-    path = Path(path)
+def _open_run(path: Path) -> h5py.File:
+    """Open a run file for reading and check it against the schema (see :mod:`.runfile_check`)."""
     if not path.exists():
         parts = path.with_name(path.name + ".parts")
         hint = (f" (an unfinished run is in {parts.name}: rerun the sweep with --resume)"
                 if parts.is_dir() else "")
         raise RunFileError(f"run file not found{hint}", source=str(path))
+    if path.is_dir():
+        raise RunFileError("is a folder, not a run file", source=str(path))
     try:
         f = h5py.File(path, "r")
     except OSError:
-        raise RunFileError("not an HDF5 file", source=str(path)) from None
-    with f:
-        attrs = {k: _attr(v) for k, v in f.attrs.items()}
-        if attrs.get("format") != FORMAT:
-            raise RunFileError(f"not a {FORMAT} file (format attribute missing)", source=str(path))
-        if int(attrs.get("format_version", -1)) > FORMAT_VERSION:
-            raise RunFileError(
-                f"format_version {attrs['format_version']} is newer than this software reads",
-                source=str(path),
-            )
-        if not isinstance(f.get("eos"), h5py.Group):
-            raise RunFileError("incomplete run file: no /eos group", source=str(path))
-        sequences = {}
-        for name, g in f["eos"].items():
-            columns = {k: d[()] for k, d in g.items() if isinstance(d, h5py.Dataset)}
-            groups = {
-                k: {n: d[()] for n, d in sg.items()} | {"attrs": {a: _attr(v) for a, v in sg.attrs.items()}}
-                for k, sg in g.items()
-                if isinstance(sg, h5py.Group)
-            }
-            ga = {k: _attr(v) for k, v in g.attrs.items()}
-            ga.pop("star_status_meaning", None)  # the schema's, see schema.STAR_STATUS
-            if "kind" not in ga:
-                raise RunFileError(f"incomplete run file: /eos/{name} has no kind attribute", source=str(path))
-            sequences[name] = EOSSequence(
-                name=name,
-                kind=ga.pop("kind"),
-                parameters=json.loads(ga.pop("parameters", "{}")),
-                table_sha256=ga.pop("table_sha256", None),
-                columns=columns,
-                summary=ga,
-                groups=groups,
-            )
-        ensembles = {}
-        for name, g in (f["ensemble"].items() if isinstance(f.get("ensemble"), h5py.Group) else ()):
-            members = {k: d[()] for k, d in g["members"].items()}
-            summaries = {k: d[()] for k, d in g.items() if isinstance(d, h5py.Dataset) and d.ndim == 1
-                         and k != "sweep_values"}
-            ensembles[name] = EnsembleSummary(name, {k: _attr(v) for k, v in g.attrs.items()}, members, summaries)
+        raise RunFileError("not an HDF5 file (or a truncated or damaged one)", source=str(path)) from None
+    try:
+        check_run_file(f, str(path))
+    except BaseException:
+        f.close()
+        raise
+    return f
+
+
+def read_run(path: str | Path) -> RunFile:
+    """Read a run file written by :class:`RunFileWriter`.
+
+    The file is checked against the whole schema first, so what comes back
+    has every dataset and attribute the schema promises (version-1 files:
+    all but ``star_status`` and ``error_estimate``).
+
+    Raises
+    ------
+    RunFileError
+        If the file is missing, not HDF5, not a stellar_match run file, of
+        a format version this software does not read, or if any group,
+        dataset or attribute is missing or of the wrong type or shape (the
+        message names the first one).
+    """
+    path = Path(path)
+    f = _open_run(path)
+    try:
+        with f:
+            return _read_checked(f, path)
+    except OSError as exc:  # damaged data chunks show only when read
+        raise RunFileError(f"cannot read the data (damaged HDF5: {exc})", source=str(path)) from None
+
+
+def _read_checked(f: h5py.File, path: Path) -> RunFile:
+    attrs = {k: _attr(v) for k, v in f.attrs.items()}
+    sequences = {}
+    for name, g in f["eos"].items():
+        columns = {k: d[()] for k, d in g.items() if isinstance(d, h5py.Dataset)}
+        groups = {
+            k: {n: d[()] for n, d in sg.items()} | {"attrs": {a: _attr(v) for a, v in sg.attrs.items()}}
+            for k, sg in g.items()
+            if isinstance(sg, h5py.Group)
+        }
+        ga = {k: _attr(v) for k, v in g.attrs.items()}
+        ga.pop("star_status_meaning", None)  # the schema's, see schema.STAR_STATUS
+        sequences[name] = EOSSequence(
+            name=name,
+            kind=ga.pop("kind"),
+            parameters=json.loads(ga.pop("parameters")),
+            table_sha256=ga.pop("table_sha256", None),
+            columns=columns,
+            summary=ga,
+            groups=groups,
+        )
+    ensembles = {}
+    for name, g in (f["ensemble"].items() if "ensemble" in f else ()):
+        members = {k: d[()] for k, d in g["members"].items()}
+        summaries = {k: d[()] for k, d in g.items() if isinstance(d, h5py.Dataset) and d.ndim == 1
+                     and k != "sweep_values"}
+        ensembles[name] = EnsembleSummary(name, {k: _attr(v) for k, v in g.attrs.items()}, members, summaries)
     return RunFile(path, attrs, sequences, ensembles)

@@ -21,6 +21,7 @@ import numpy as np
 __all__ = [
     "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "STAR_DATASETS", "STAR_STATUS", "TARGET_DATASETS",
     "BINARY_DATASETS", "SUMMARY_ATTRIBUTES", "NOT_SOLVED", "MEMBER_SUMMARIES", "MEMBER_STATUS", "dataset_dtype",
+    "DATASET_SINCE_VERSION", "MAX_NAME_LENGTH", "group_name_problem",
 ]
 
 FORMAT = "stellar_match.run"
@@ -110,3 +111,43 @@ MEMBER_STATUS: dict[int, str] = {
 def dataset_dtype(name: str):
     """numpy dtype of a per-star or per-member dataset."""
     return {"stable": bool, "causal": bool, "status": np.int8, "star_status": np.int8}.get(name, float)
+
+
+#: Per-star datasets that are not in every readable version: name -> first
+#: format version that has it (all others are in every version).
+DATASET_SINCE_VERSION: dict[str, int] = {"error_estimate": 2, "star_status": 2}
+
+#: Longest EOS or ensemble name: it is a label in tables and figure legends.
+MAX_NAME_LENGTH = 200
+
+
+def group_name_problem(name: object) -> str | None:
+    """Why ``name`` cannot be the name of an ``/eos`` or ``/ensemble`` group, or None if it can.
+
+    EOS and ensemble names become HDF5 link names, which are split at ``/``,
+    give ``.`` a meaning of its own and are cut at the first NUL by the HDF5
+    C library (so ``"a\\0b"`` and ``"a"`` would collide only when the run
+    file is assembled, after the whole computation).  Control characters and
+    outer blanks would make the one-line error messages and the summary
+    table ambiguous, and a leading dot hides the group from the usual
+    listings.
+    """
+    import unicodedata
+
+    if not isinstance(name, str):
+        return f"needs a string, got {type(name).__name__}"
+    if not name.strip():
+        return "needs a non-empty name"
+    if name in (".", ".."):
+        return f"{name!r} is not a usable name"
+    if "/" in name:
+        return f"may not contain '/', got {name!r}"
+    if any(unicodedata.category(c) in ("Cc", "Zl", "Zp") for c in name):
+        return f"may not contain NUL, line breaks or other control characters, got {name!r}"
+    if name.startswith("."):
+        return f"may not start with '.', got {name!r}"
+    if name != name.strip():
+        return f"may not start or end with blanks, got {name!r}"
+    if len(name) > MAX_NAME_LENGTH:
+        return f"is {len(name)} characters long (at most {MAX_NAME_LENGTH})"
+    return None
