@@ -107,5 +107,6 @@ _OS_REASONS = {
     errno.EPERM: "operation not permitted",
     errno.ENOENT: "it does not exist (any more)",
     errno.ENOTDIR: "a file stands where a folder should be",
+    errno.EEXIST: "a file of that name is in the way",
     errno.EIO: "input/output error of the device",
 }

@@ -164,6 +164,11 @@ class RunFileWriter:
         self._file.create_group("eos", track_order=True)
         self._flush()
 
+    @staticmethod
+    def partial_path(path: str | Path) -> Path:
+        """Where the writer of ``path`` keeps the file until it is complete."""
+        return _partial_name(Path(path))
+
     def _flush(self) -> None:
         """Flush to disk and stop at the first failed write."""
         self._file.flush()

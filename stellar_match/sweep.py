@@ -335,6 +335,8 @@ def run_config(
     store = PartStore(out, config.text, __version__)
     with RunLock(out):  # everything below touches the output: one run at a time
         _prepare_parts(store, out, force=force, resume=resume)
+        # with the lock held, a partial run file is a leftover of a run killed while assembling
+        RunFileWriter.partial_path(out).unlink(missing_ok=True)
         tasks = plan_tasks(config)
         if resume:
             store.discard_unusable(tasks)
