@@ -61,20 +61,21 @@ LIMIT_ASSEMBLY = 250_000
 #: A file-size limit under which the star parts fit but the member parts do not.
 LIMIT_PARTS = 50_000
 
-#: Two member chunks of 300 members x 40 stars: several seconds each, so that an
-#: interrupt a second after the workers start lands inside both chunks.
+#: Two member chunks of 600 members x 80 stars, ~10 s each: an interrupt a second after
+#: the workers start lands inside both chunks, and waiting for them would take far longer
+#: than 2 s.  No test waits for them: the chunks are killed.
 LONG_CHUNKS_CONFIG = """\
 [sweep]
-central_density = { min = 3e14, max = 3e15, count = 40 }
+central_density = { min = 3e14, max = 3e15, count = 80 }
 
 [solver]
-member_chunk_size = 300
+member_chunk_size = 600
 
 [[ensemble]]
 name = "prior"
 kind = "piecewise_polytrope"
 [ensemble.sample]
-count = 600
+count = 1200
 seed = 5
 log10_p1 = [34.2, 34.7]
 gamma1 = [2.0, 4.0]
@@ -182,7 +183,7 @@ def busy_workers(proc: subprocess.Popen, count: int = 2) -> list:
     """Wait until the main process has ``count`` workers and they are inside their chunks."""
     main = psutil.Process(proc.pid)
     wait_until(lambda: len(main.children()) >= count, proc, f"{count} workers")
-    time.sleep(1.0)  # both have picked up a chunk (LONG_CHUNKS_CONFIG chunks take several seconds)
+    time.sleep(1.0)  # both have picked up a chunk (LONG_CHUNKS_CONFIG chunks take ~10 s)
     return main.children(recursive=True)
 
 
@@ -213,10 +214,10 @@ def test_sigkill_at_random_moments_then_resume_is_bit_identical(reference, tmp_p
             workers = psutil.Process(proc.pid).children(recursive=True)
             os.kill(proc.pid, signal.SIGKILL)
             assert proc.wait(timeout=10) == -signal.SIGKILL
+            assert_gone(workers, timeout=5)  # inside: leaving `reaped` kills the whole group
         assert not out.path.exists()  # never a run file that is not complete
         if moment != "assembly":
             assert len(out.part_names()) < N_TASKS
-        assert_gone(workers, timeout=5)
     assert out.lock.exists()  # left by the kill; the resume below must take it over unasked
     assert len(out.part_names()) == N_TASKS
 
@@ -235,8 +236,9 @@ def test_sigkill_of_the_main_process_ends_its_workers(tmp_path):
         assert len(workers) >= 2 and all(_alive(w) for w in workers)
         os.kill(proc.pid, signal.SIGKILL)
         proc.wait(timeout=10)
-    # their chunks would take seconds more: without a tie to the main process they keep running
-    assert_gone(workers, timeout=3)
+        # their chunks take ~10 s more: without a tie to the main process they keep running
+        # (checked inside the `with`: leaving `reaped` kills whatever is left of the group)
+        assert_gone(workers, timeout=3)
     assert not out.path.exists()
 
 
@@ -263,14 +265,16 @@ def test_interrupt_stops_within_two_seconds_and_leaves_no_worker(tmp_path, signu
         code = proc.wait(timeout=30)
         elapsed = time.monotonic() - sent
         stderr = stderr_of(proc)
+        # the main process killed and reaped them before it exited (checked before `reaped`
+        # kills whatever is left of the group)
+        assert_gone(workers, timeout=0.5)
     assert code == status, stderr
-    # not a speed benchmark: a chunk takes several seconds, so waiting for the chunks in
+    # not a speed benchmark: a chunk takes ~10 s, so waiting for the chunks in
     # flight (instead of killing the workers) cannot finish within 2 s
     assert elapsed < 2.0, elapsed
     line = interrupt_line(stderr)  # no worker printed a KeyboardInterrupt traceback
     assert str(out.parts) in line and "--resume" in line
     assert ("SIGTERM" in line) == (signum == signal.SIGTERM)
-    assert_gone(workers, timeout=0.5)  # the main process killed and reaped them before it exited
     assert out.part_names() == []  # the chunks in flight were abandoned, not waited for
     assert out.parts.is_dir()
     out.assert_nothing_but_parts()
