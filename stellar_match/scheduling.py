@@ -480,6 +480,8 @@ def _init_worker(work: Work, parent: int) -> None:
     global _WORKER_WORK
     _WORKER_WORK = work
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    # fork copied the CLI's SIGTERM handler; a worker told to stop should just stop
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
     # the main process's lock file must not stay held by an orphaned worker (fork copied the fd)
     for fd in _HELD_LOCKS.values():
         try:
