@@ -162,7 +162,7 @@ def test_ensemble_dataset_shapes_and_units(csv_run):
         assert g["sweep_values"].attrs["unit"] == "g/cm3"
         for col, unit in SPEC_UNITS.items():  # the per-star units the issue specifies
             d = g[col]
-            assert d.shape == (n, N_STARS) and d.dtype.kind == "f", col
+            assert d.shape == (n, N_STARS) and d.dtype.kind == ("i" if col == "star_status" else "f"), col
             assert d.attrs["unit"] == unit, col
         assert g["stable"].shape == (n, N_STARS) and g["stable"].dtype == np.bool_
         summaries = {"max_mass": "Msun", "max_mass_radius": "km", "max_mass_central_density": "g/cm3",
