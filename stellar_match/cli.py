@@ -1,7 +1,10 @@
 """The ``stellar-match`` command line: argument parsing and printing only.
 
-Every user mistake surfaces as one line on stderr and exit status 2; an
-interrupt (Ctrl-C) keeps finished work in ``<out>.partial`` and exits 130.
+Every user mistake -- and every output that cannot be written: disk full, a
+file-size limit, a read-only folder, an output held by another run -- surfaces
+as one line on stderr and exit status 2.  An interrupt of a sweep (Ctrl-C, or
+SIGTERM from a batch system at its time limit) stops its workers, keeps the
+finished chunks in ``<out>.parts`` and exits 130 (SIGINT) or 143 (SIGTERM).
 """
 
 from __future__ import annotations
@@ -9,8 +12,12 @@ from __future__ import annotations
 import argparse
 import os
 import shutil
+import signal
 import sys
+import threading
 import warnings
+from collections.abc import Iterator
+from contextlib import contextmanager
 from importlib import resources
 from pathlib import Path
 
@@ -22,6 +29,44 @@ from .runfile import read_run
 from .sequence import interpolate_on_stable_branch
 
 PROG = "stellar-match"
+#: Exit status after SIGINT / SIGTERM: 128 + the signal number, as a shell reports a signal death.
+EXIT_SIGINT = 128 + signal.SIGINT
+EXIT_SIGTERM = 128 + signal.SIGTERM
+
+
+class Terminated(KeyboardInterrupt):
+    """SIGTERM, handled like Ctrl-C: every cleanup that runs for KeyboardInterrupt runs for it."""
+
+
+def _raise_terminated(signum, frame) -> None:
+    # a second SIGTERM must not break the orderly stop the first one started
+    signal.signal(signal.SIGTERM, signal.SIG_IGN)
+    raise Terminated()
+
+
+@contextmanager
+def _sweep_signals() -> Iterator[None]:
+    """Signal handling of a sweep: SIGINT and SIGTERM interrupt, SIGXFSZ is ignored.
+
+    SIGINT interrupts even where the shell started the sweep with it ignored
+    (a background job of a script), so that ``kill -INT`` always stops a
+    run.  With SIGXFSZ ignored, a write past a file-size limit fails with EFBIG and
+    is reported as one line, instead of the signal killing the process
+    (CPython ignores it already; this keeps it so when embedded).
+    """
+    if threading.current_thread() is not threading.main_thread():  # handlers belong to the main thread
+        yield
+        return
+    old_int = signal.signal(signal.SIGINT, signal.default_int_handler)
+    old_term = signal.signal(signal.SIGTERM, _raise_terminated)
+    old_xfsz = signal.signal(signal.SIGXFSZ, signal.SIG_IGN) if hasattr(signal, "SIGXFSZ") else None
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, old_int)
+        signal.signal(signal.SIGTERM, old_term)
+        if old_xfsz is not None:
+            signal.signal(signal.SIGXFSZ, old_xfsz)
 
 
 def _progress_bar(total: int, desc: str):
@@ -103,11 +148,12 @@ def _run_sweep(config_path: Path, out: Path | None, force: bool, *, resume: bool
     members = sum(e.size for e in config.ensembles)
     bar = _LazyBar(total, "sweep", members)
     try:
-        path = run_config(config, out, force=force, resume=resume, workers=workers, scheduler=scheduler,
-                          progress=bar.update)
-    except KeyboardInterrupt:
+        with _sweep_signals():
+            path = run_config(config, out, force=force, resume=resume, workers=workers, scheduler=scheduler,
+                              progress=bar.update)
+    except KeyboardInterrupt as exc:  # Terminated too: keep the kind, add where the parts are
         bar.close()
-        raise KeyboardInterrupt(f"{out}.parts") from None
+        raise type(exc)(f"{out}.parts") from None
     finally:
         bar.close()
     return path
@@ -331,9 +377,17 @@ def _run(args) -> int:
         print(f"{PROG}: error: {exc.one_line()}", file=sys.stderr)
         return 2
     except KeyboardInterrupt as exc:
-        where = f" in {exc.args[0]}" if exc.args else ""
-        print(f"{PROG}: interrupted; finished chunks are kept{where}: rerun with --resume", file=sys.stderr)
-        return 130
+        what = " (SIGTERM)" if isinstance(exc, Terminated) else ""
+        parts = exc.args[0] if exc.args else None
+        if parts is None:  # not a sweep
+            print(f"{PROG}: interrupted{what}", file=sys.stderr)
+        elif Path(parts).is_dir():
+            print(f"{PROG}: interrupted{what}; finished chunks are kept in {parts}: rerun with --resume",
+                  file=sys.stderr)
+        else:
+            print(f"{PROG}: interrupted{what} before any chunk was saved; no run file was written",
+                  file=sys.stderr)
+        return EXIT_SIGTERM if isinstance(exc, Terminated) else EXIT_SIGINT
 
 
 if __name__ == "__main__":

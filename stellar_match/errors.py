@@ -8,6 +8,8 @@ status 2.  Bugs in stellar_match itself still raise ordinary exceptions.
 
 from __future__ import annotations
 
+import errno
+
 
 class InputError(Exception):
     """A user-facing input problem, located as precisely as possible.
@@ -62,3 +64,49 @@ class TableError(InputError):
 
 class RunFileError(InputError):
     """A problem with an HDF5 run file (missing, foreign, or incomplete)."""
+
+
+class StorageError(InputError):
+    """A file could not be written or read back: disk full, a file-size or quota
+    limit, a read-only, vanished or missing folder, or an output held by another run.
+
+    Not a mistake in the inputs, but one the user fixes outside stellar_match
+    (free space, raise the limit, fix permissions, wait for the other run), so
+    it gets the same one-line treatment on the command line.
+    """
+
+    @classmethod
+    def from_os_error(cls, exc: OSError, doing: str, *, source: str | None = None,
+                      hint: str = "") -> StorageError:
+        """One line for an ``OSError`` met while ``doing`` something ("cannot save a part").
+
+        Parameters
+        ----------
+        exc : OSError
+            The failure; its errno picks the wording the user can act on.
+        doing : str
+            What failed, e.g. ``"cannot write the run file"``.
+        source : str, optional
+            The file or folder concerned (default: the one named by ``exc``).
+        hint : str
+            What to do next, appended after a colon.
+        """
+        reason = _OS_REASONS.get(exc.errno or 0) or exc.strerror or str(exc) or type(exc).__name__
+        where = source if source is not None else exc.filename
+        return cls(f"{doing} ({reason})" + (f": {hint}" if hint else ""),
+                   source=None if where is None else str(where))
+
+
+#: Wording for the errors a full disk, a limit or a permission gives (errno -> reason).
+_OS_REASONS = {
+    errno.ENOSPC: "no space left on the device",
+    errno.EFBIG: "file too large: a file-size limit (ulimit -f) was reached",
+    errno.EDQUOT: "disk quota exceeded",
+    errno.EROFS: "read-only file system",
+    errno.EACCES: "permission denied",
+    errno.EPERM: "operation not permitted",
+    errno.ENOENT: "it does not exist (any more)",
+    errno.ENOTDIR: "a file stands where a folder should be",
+    errno.EEXIST: "a file of that name is in the way",
+    errno.EIO: "input/output error of the device",
+}

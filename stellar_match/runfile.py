@@ -18,14 +18,21 @@ The datasets and their units are listed in :data:`STAR_DATASETS`.
 
 Writing follows the pattern of an HDF5 sampler backend: resizable datasets
 grow chunk by chunk as stars are solved and are flushed after each chunk;
-everything goes to ``<name>.partial`` and is renamed onto the final name
-only when the sweep is complete, so an interrupted sweep never leaves a
-half-written file under the requested name.
+everything goes to ``<name>.partial``, which is fsynced and renamed onto the
+final name only when the sweep is complete (and the folder fsynced), so an
+interrupted sweep never leaves a half-written file under the requested name.
+
+HDF5 writes through :class:`_GuardedFile`: a failed write (disk full, a
+file-size limit) is recorded there and reported as
+:class:`~stellar_match.errors.StorageError` instead of reaching HDF5, whose
+state after a failed write is broken (closing such a file, or the
+interpreter's exit, crashes the process).
 """
 
 from __future__ import annotations
 
 import datetime as _dt
+import io
 import json
 import os
 from pathlib import Path
@@ -33,7 +40,7 @@ from pathlib import Path
 import h5py
 import numpy as np
 
-from .errors import RunFileError
+from .errors import RunFileError, StorageError
 from .runfile_check import check_run_file
 from .schema import (
     BINARY_DATASETS,
@@ -63,6 +70,51 @@ def _partial_name(path: Path) -> Path:
     return path.with_name(path.name + ".partial")
 
 
+class _GuardedFile(io.FileIO):
+    """A file for h5py's file-object driver that never fails a write towards HDF5.
+
+    The first ``OSError`` of a write or truncate is kept in :attr:`failure`
+    and later writes are dropped; :class:`RunFileWriter` checks it after each
+    flush and gives up with a :class:`StorageError`.  The file is deleted
+    then, so the dropped bytes never matter.
+    """
+
+    failure: OSError | None = None
+
+    def write(self, data) -> int:
+        view = memoryview(data).cast("B")
+        if self.failure is None:
+            try:
+                done = 0
+                while done < len(view):  # a nearly full disk may take only part of a write
+                    done += super().write(view[done:])
+            except OSError as exc:
+                self.failure = exc
+        return len(view)
+
+    def truncate(self, size: int | None = None) -> int:
+        if self.failure is None:
+            try:
+                return super().truncate(size)
+            except OSError as exc:
+                self.failure = exc
+        return self.tell() if size is None else size
+
+
+def _fsync_folder(folder: Path) -> None:
+    """Make a rename in ``folder`` durable (POSIX; a no-op where folders cannot be opened)."""
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass  # some file systems refuse fsync on folders; the rename itself is done
+    finally:
+        os.close(fd)
+
+
 class RunFileWriter:
     """Write a run file chunk by chunk; rename into place on :meth:`close`.
 
@@ -78,7 +130,11 @@ class RunFileWriter:
     Raises
     ------
     RunFileError
-        If ``path`` exists and ``force`` is false, or cannot be written.
+        If ``path`` exists and ``force`` is false, or is a folder.
+    StorageError
+        If its folder does not exist, or the file cannot be written (disk
+        full, a file-size limit, permissions); the partial file is deleted
+        then.
     """
 
     def __init__(self, path: str | Path, *, config_text: str, force: bool = False) -> None:
@@ -87,12 +143,19 @@ class RunFileWriter:
             raise RunFileError("is a folder; give a file name for the run file", source=str(self.path))
         if self.path.exists() and not force:
             raise RunFileError("exists already; pass --force to overwrite it", source=str(self.path))
+        if not self.path.parent.is_dir():  # a typo in a path should not grow a folder tree
+            raise StorageError("folder does not exist; create it first", source=str(self.path.parent))
         self.partial = _partial_name(self.path)
         try:
-            self.path.parent.mkdir(parents=True, exist_ok=True)
-            self._file = h5py.File(self.partial, "w", track_order=True)
+            self._raw = _GuardedFile(self.partial, "w+")
         except OSError as exc:
-            raise RunFileError(f"cannot write here ({exc})", source=str(self.path)) from None
+            raise StorageError.from_os_error(exc, "cannot write the run file", source=str(self.partial)) from None
+        try:
+            self._file = h5py.File(self._raw, "w", track_order=True)
+        except BaseException:
+            self._raw.close()
+            self.partial.unlink(missing_ok=True)
+            raise
         a = self._file.attrs
         a["format"] = FORMAT
         a["format_version"] = FORMAT_VERSION
@@ -100,6 +163,22 @@ class RunFileWriter:
         a["created_utc"] = _dt.datetime.now(_dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
         a["config_toml"] = config_text
         self._file.create_group("eos", track_order=True)
+        self._flush()
+
+    @staticmethod
+    def partial_path(path: str | Path) -> Path:
+        """Where the writer of ``path`` keeps the file until it is complete."""
+        return _partial_name(Path(path))
+
+    def _flush(self) -> None:
+        """Flush to disk and stop at the first failed write."""
+        self._file.flush()
+        self._check_storage()
+
+    def _check_storage(self) -> None:
+        if self._raw.failure is not None:
+            raise StorageError.from_os_error(self._raw.failure, "cannot write the run file",
+                                             source=str(self.partial))
 
     # -- the sink interface used by sweep_eos --------------------------------
     def start_eos(self, name: str, kind: str, parameters: dict, table_sha256: str | None,
@@ -115,7 +194,7 @@ class RunFileWriter:
             d = g.create_dataset(col, shape=(0,), maxshape=(None,), dtype=dataset_dtype(col), chunks=(4096,))
             d.attrs["unit"] = unit
             d.attrs["description"] = meaning
-        self._file.flush()
+        self._flush()
 
     def append(self, name: str, chunk: dict[str, np.ndarray]) -> None:
         """Append one chunk of stars (every per-star column but ``stable``)."""
@@ -125,7 +204,7 @@ class RunFileWriter:
             n = d.shape[0]
             d.resize((n + len(values),))
             d[n:] = values
-        self._file.flush()
+        self._flush()
 
     def finish_eos(self, name: str, late_columns: dict[str, np.ndarray], summary: dict,
                    groups: dict | None = None) -> None:
@@ -144,7 +223,7 @@ class RunFileWriter:
             for col, (values, unit) in datasets["data"].items():
                 d = sg.create_dataset(col, data=values)
                 d.attrs["unit"] = unit
-        self._file.flush()
+        self._flush()
 
     def write_ensemble(self, spec, axis, parts) -> None:
         """Write ``/ensemble/<name>`` from (task, arrays) parts in member order.
@@ -176,17 +255,35 @@ class RunFileWriter:
         for task, arrays in parts:
             for col in (*STAR_DATASETS, *MEMBER_SUMMARIES):
                 g[col][task.start : task.stop] = arrays[col]
-            self._file.flush()
+            self._flush()
 
     def discard(self) -> None:
         """Close and delete the partial file (the caller keeps its parts elsewhere)."""
         self.abort()
-        self.partial.unlink(missing_ok=True)
+        try:
+            self.partial.unlink(missing_ok=True)
+        except OSError:
+            pass  # e.g. the folder became read-only; nothing under the final name either way
 
     def close(self) -> Path:
-        """Close and move the completed file onto its final name."""
+        """Close, fsync and move the completed file onto its final name.
+
+        Raises
+        ------
+        StorageError
+            If any byte could not be written; the file is then not renamed
+            (call :meth:`discard`).
+        """
         self._file.close()
+        self._check_storage()
+        try:
+            self._raw.flush()
+            os.fsync(self._raw.fileno())  # the data is on disk before the name says "complete"
+        except OSError as exc:
+            raise StorageError.from_os_error(exc, "cannot write the run file", source=str(self.partial)) from None
+        self._raw.close()
         os.replace(self.partial, self.path)
+        _fsync_folder(self.path.parent)
         return self.path
 
     def abort(self) -> Path:
@@ -194,6 +291,10 @@ class RunFileWriter:
         try:
             self._file.close()
         except Exception:  # noqa: BLE001 - the file may already be unusable
+            pass
+        try:
+            self._raw.close()
+        except OSError:
             pass
         return self.partial
 

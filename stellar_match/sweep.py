@@ -10,6 +10,7 @@ exterior match -> sequence analysis -> run file -- for one EOS
 from __future__ import annotations
 
 from collections.abc import Callable
+from contextlib import closing
 from pathlib import Path
 from typing import Protocol
 
@@ -18,7 +19,7 @@ import numpy as np
 from . import units
 from .config import SweepConfig, load_config
 from .eos import EquationOfState, central_enthalpy
-from .errors import ConfigError, InputError, RunFileError
+from .errors import ConfigError, InputError, RunFileError, StorageError
 from .exterior import star_columns
 from .runfile import RunFileWriter
 from .schema import STAR_DATASETS, TARGET_DATASETS
@@ -298,15 +299,26 @@ def run_config(
     Path
         The run file written.
 
+    Raises
+    ------
+    InputError
+        For a bad config or output path.  Its subclass ``StorageError`` when
+        another run holds the output (``<out>.lock``), when the output's
+        folder does not exist, or when a part or the run file cannot be
+        written (disk full, a file-size limit, a read-only or vanished
+        folder); the finished parts are kept then, for ``resume``.
+
     Notes
     -----
     Every EOS is built and checked against the sweep range before any star
     is solved, so a bad config fails at once.  Chunk boundaries come from the
     config only, so the run file is the same, dataset by dataset and bit for
-    bit, for any number of workers, on Dask, and after a resume.
+    bit, for any number of workers, on Dask, and after a resume.  On resume,
+    a part that cannot be read back whole is deleted and its chunk computed
+    again.
     """
     from . import __version__
-    from .scheduling import PartStore, Work, execute, plan_tasks, task_stars
+    from .scheduling import PartStore, RunLock, Work, execute, plan_tasks, task_stars
 
     if not isinstance(config, SweepConfig):
         config = load_config(config)
@@ -318,7 +330,42 @@ def run_config(
     built = _build_all(config)
     if out.is_dir():
         raise RunFileError("is a folder; give a file name for the run file", source=str(out))
+    if not out.parent.is_dir():  # a typo in a path should not grow a folder tree
+        raise StorageError("folder does not exist; create it first", source=str(out.parent))
     store = PartStore(out, config.text, __version__)
+    with RunLock(out):  # everything below touches the output: one run at a time
+        _prepare_parts(store, out, force=force, resume=resume)
+        # with the lock held, a partial run file is a leftover of a run killed while assembling
+        RunFileWriter.partial_path(out).unlink(missing_ok=True)
+        tasks = plan_tasks(config)
+        if resume:
+            store.discard_unusable(tasks)
+        todo = [t for t in tasks if not store.done(t)]
+        if todo:
+            store.check_writable()
+        if progress is not None:
+            for t in tasks:
+                if store.done(t):
+                    progress(*task_stars(config, t))
+        try:
+            # closing(): on an interrupt the executor stops its workers at once, not at exit
+            with closing(execute(Work(config, tuple(built)), todo, workers=workers,
+                                 scheduler=scheduler)) as results:
+                for task, arrays in results:
+                    store.save(task, arrays)
+                    if progress is not None:
+                        progress(*task_stars(config, task))
+        except InputError:
+            if not any(store.done(t) for t in tasks):  # e.g. an unreachable scheduler: nothing to keep
+                store.remove()
+            raise
+        path = _assemble(config, built, tasks, store, out)
+        store.remove()
+    return path
+
+
+def _prepare_parts(store, out: Path, *, force: bool, resume: bool) -> None:
+    """Check an output against its parts folder and (re)create the folder as asked."""
     # an existing file may be overwritten with --force, or by resuming an interrupted --force run
     if out.exists() and not force and not (resume and store.exists()):
         raise RunFileError("exists already; pass --force to overwrite it", source=str(out))
@@ -331,27 +378,11 @@ def run_config(
             raise RunFileError("holds an unfinished run of this output; pass --resume to continue it "
                                "or --force to start over", source=str(store.folder))
     if not store.exists():
-        try:
-            store.create()
-        except OSError as exc:
-            raise RunFileError(f"cannot write here ({exc.strerror})", source=str(store.folder)) from None
+        store.create()
 
-    tasks = plan_tasks(config)
-    todo = [t for t in tasks if not store.done(t)]
-    if progress is not None:
-        for t in tasks:
-            if store.done(t):
-                progress(*task_stars(config, t))
-    try:
-        for task, arrays in execute(Work(config, tuple(built)), todo, workers=workers, scheduler=scheduler):
-            store.save(task, arrays)
-            if progress is not None:
-                progress(*task_stars(config, task))
-    except InputError:
-        if not any(store.done(t) for t in tasks):  # e.g. an unreachable scheduler: nothing to keep
-            store.remove()
-        raise
 
+def _assemble(config: SweepConfig, built, tasks, store, out: Path) -> Path:
+    """Write the run file from the parts: complete under its final name, or not there at all."""
     control = DEFAULT_STEPS.scaled(config.solver.step_scale)
     writer = RunFileWriter(out, config_text=config.text, force=True)
     try:
@@ -363,12 +394,16 @@ def run_config(
         for ens in config.ensembles:
             parts = [t for t in tasks if t.section == "ensemble" and t.block == ens.index]
             writer.write_ensemble(ens, config.axis, ((t, store.load(t)) for t in parts))
+        return writer.close()
+    except StorageError as exc:
+        writer.discard()
+        if exc.source != str(writer.partial):
+            raise  # a part could not be read: its message says what to do
+        raise StorageError(f"{exc.message}; the finished chunks are kept in {store.folder}: "
+                           "free space or raise the limit, then rerun with --resume", source=exc.source) from None
     except BaseException:
         writer.discard()
         raise
-    path = writer.close()
-    store.remove()
-    return path
 
 
 def eos_from_sequence(seq: EOSSequence) -> EquationOfState:

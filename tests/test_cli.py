@@ -64,6 +64,7 @@ def test_sweep_out_and_force(tmp_path, run_cli):
     cfg = tmp_path / "tiny.toml"
     cfg.write_text(TINY_CONFIG)
     out = tmp_path / "results" / "tiny_run.h5"
+    out.parent.mkdir()  # run files go into existing folders only (test_faults.py checks the refusal)
     code, stdout, err = run_cli("sweep", cfg, "-o", out)
     assert code == 0, err
     assert f"wrote {out}" in stdout and "sly" in table_rows(stdout)
