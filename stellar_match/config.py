@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 import tomllib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -19,6 +19,7 @@ import numpy as np
 from . import eos as eos_module
 from .errors import ConfigError, InputError
 from .schema import group_name_problem
+from .structure import DEFAULT_STEPS, DEFAULT_TOLERANCE, StepControl
 
 __all__ = ["SweepAxis", "EOSSpec", "SolverOptions", "SweepConfig", "load_config", "parse_config"]
 
@@ -155,11 +156,20 @@ class SolverOptions:
         Stars of an ``[[eos]]`` block solved and saved per chunk.
     member_chunk_size : int
         Ensemble members solved together and saved per chunk.
+    tolerance : float
+        Largest relative error in M, R and M_b a star may carry with status
+        0; a star the solver cannot bring below it within its step budget is
+        NaN with a non-zero ``star_status``.
     """
 
     step_scale: float = 1.0
     chunk_size: int = 2048
     member_chunk_size: int = 128
+    tolerance: float = DEFAULT_TOLERANCE
+
+    def control(self) -> StepControl:
+        """The solver's step control for these options."""
+        return replace(DEFAULT_STEPS.scaled(self.step_scale), tolerance=self.tolerance)
 
 
 @dataclass
@@ -373,7 +383,7 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
     solver = SolverOptions()
     if "solver" in data:
         st = _table(data["solver"], source, "solver")
-        _no_unknown(st, {"step_scale", "chunk_size", "member_chunk_size"}, source, "solver")
+        _no_unknown(st, {"step_scale", "chunk_size", "member_chunk_size", "tolerance"}, source, "solver")
         scale = _number(st.get("step_scale", 1.0), source, "solver.step_scale", positive=True)
         if scale > 4:
             raise _fail(source, "solver.step_scale", f"{scale:g} is too coarse to trust (use <= 4)")
@@ -388,7 +398,12 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
             if isinstance(v, bool) or not isinstance(v, int) or v < 1:
                 raise _fail(source, f"solver.{k}", f"needs a whole number >= 1, got {v!r}")
             sizes[k] = v
-        solver = SolverOptions(step_scale=scale, **sizes)
+        tolerance = _number(st.get("tolerance", DEFAULT_TOLERANCE), source, "solver.tolerance", positive=True)
+        # below ~1e-9 round-off in the sums of the hot loop is of the same size; above 1e-3 a
+        # "within tolerance" star is too rough for any use of the sequence (common practice)
+        if not 1e-9 <= tolerance <= 1e-3:
+            raise _fail(source, "solver.tolerance", f"{tolerance:g} is outside 1e-9 to 1e-3")
+        solver = SolverOptions(step_scale=scale, tolerance=tolerance, **sizes)
 
     blocks = data.get("eos", [])
     ens_blocks = data.get("ensemble", [])

@@ -188,14 +188,15 @@ def select_sequences(runs, names: list[str] | None = None) -> list[tuple[str, EO
 
 
 def control_of_run(run):
-    """The solver step control a run file's sweep used (``[solver] step_scale`` of its config)."""
-    from .structure import DEFAULT_STEPS
+    """The solver step control a run file's sweep used (``[solver] step_scale`` and ``tolerance``)."""
+    from .config import SolverOptions
 
     try:
         solver = tomllib.loads(str(run.attrs.get("config_toml", ""))).get("solver", {})
     except tomllib.TOMLDecodeError:
         solver = {}
-    return DEFAULT_STEPS.scaled(float(solver.get("step_scale", 1.0)))
+    return SolverOptions(step_scale=float(solver.get("step_scale", 1.0)),
+                         tolerance=float(solver.get("tolerance", SolverOptions.tolerance))).control()
 
 
 def check_output_path(path: str | Path, allowed: tuple[str, ...]) -> Path:

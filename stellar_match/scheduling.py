@@ -111,10 +111,10 @@ def run_task(work: Work, task: Task) -> dict[str, np.ndarray]:
     from .ensemble import solve_members
     from .eos import central_enthalpy
     from .exterior import star_columns
-    from .structure import DEFAULT_STEPS, solve_interiors
+    from .structure import solve_interiors
 
     config = work.config
-    control = DEFAULT_STEPS.scaled(config.solver.step_scale)
+    control = config.solver.control()
     values = config.axis.values
     if task.section == "eos":
         eos = work.eos[task.block]

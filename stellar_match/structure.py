@@ -224,6 +224,8 @@ class StarInteriors:
     status : ndarray of int8 or None
         Per-star quality code (``schema.STAR_STATUS``); the physics values
         of a star with a non-zero code are NaN.
+    steps : ndarray of int or None
+        Steps each star took, over all its grids (the cost of its refinements).
     """
 
     central_enthalpy: np.ndarray
@@ -238,6 +240,7 @@ class StarInteriors:
     moment_of_inertia: np.ndarray | None = None
     error_estimate: np.ndarray | None = None
     status: np.ndarray | None = None
+    steps: np.ndarray | None = None
 
 
 def central_series(p_c, eps_c, rho_c, deps_dh_c, x):
@@ -652,6 +655,7 @@ def solve_interiors(
             baryon_mass=w * r3,
             error_estimate=estimate,
             status=status,
+            steps=steps,
         )
         if response:
             compactness = mass / radius
@@ -666,7 +670,6 @@ def solve_interiors(
             omega_r, psi_r = y[4], y[5]
             J = radius**5 * psi_r / np.sqrt(1.0 - 2.0 * compactness) / 6.0
             out.moment_of_inertia = J / (omega_r + 2.0 * J / r3)
-    out.steps = steps
     return out
 
 
@@ -737,6 +740,8 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> tuple[np.ndarr
     # the response equations see d eps/dh, which jumps there.
     error = np.zeros((3, n))
     carry = np.zeros((3, n))  # this step's estimate, all but its last stage
+    carry_flat, n3 = carry.reshape(-1), 3 * n
+    scratch = np.empty((3, n))
     dh_prev = np.zeros(n)
 
     def rhs(i, hi, yi, coeff):
@@ -756,12 +761,23 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> tuple[np.ndarr
             yi = y if i == 0 else y + dh * (a[i, :i] @ flat[:i]).reshape(shape)
             rhs(i, np.maximum(h0 + c[i] * dh, h_guard), yi, coeff)
             if i == 0 and s > 0:
-                error += np.abs(carry + (dh_prev * e_last) * k[0, :3]) / np.abs(y[:3])
-        np.multiply(dh, np.tensordot(e_stages, k[:, :3], axes=1), out=carry)
+                _accumulate(error, carry, dh_prev * e_last, k[0, :3], y[:3], scratch)
+        # (u, v, w) are the first 3 n entries of each stage row of ``flat``
+        np.dot(e_stages, flat[:, :n3], out=carry_flat)
+        carry *= dh
         dh_prev = dh
         y = y + dh * (b @ flat).reshape(shape)
     # the seventh stage of the last step: the derivative at the surface
     coeff = {name: table[piece[-1]] for name, table in coeff_tables.items()}
     rhs(0, h_guard, y, coeff)
-    error += np.abs(carry + (dh_prev * e_last) * k[0, :3]) / np.abs(y[:3])
+    _accumulate(error, carry, dh_prev * e_last, k[0, :3], y[:3], scratch)
     return y, error, steps
+
+
+def _accumulate(error, carry, last_weight, last_stage, state, scratch) -> None:
+    """error += |carry + last_weight * last_stage| / |state|, in place (the hot loop)."""
+    np.multiply(last_stage, last_weight, out=scratch)
+    scratch += carry
+    scratch /= state
+    np.abs(scratch, out=scratch)
+    error += scratch

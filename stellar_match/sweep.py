@@ -383,7 +383,7 @@ def _prepare_parts(store, out: Path, *, force: bool, resume: bool) -> None:
 
 def _assemble(config: SweepConfig, built, tasks, store, out: Path) -> Path:
     """Write the run file from the parts: complete under its final name, or not there at all."""
-    control = DEFAULT_STEPS.scaled(config.solver.step_scale)
+    control = config.solver.control()
     writer = RunFileWriter(out, config_text=config.text, force=True)
     try:
         for eos, spec in zip(built, config.eos, strict=True):
