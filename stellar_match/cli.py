@@ -26,6 +26,7 @@ import numpy as np
 from . import __version__
 from .errors import InputError
 from .runfile import read_run
+from .schema import STAR_STATUS
 from .sequence import interpolate_on_stable_branch
 
 PROG = "stellar-match"
@@ -121,6 +122,11 @@ def summary_table(run) -> str:
              for r in (head, units_row, *rows)]
     notes = [f"  {n}: maximum {seq.summary['max_mass_status']}" for n, seq in run.eos.items()
              if not str(seq.summary.get("max_mass_status", "found")).startswith("found")]
+    for n, seq in run.eos.items():  # stars without a result are NaN; say how many and why
+        codes = np.asarray(seq.columns.get("star_status", []), dtype=int)
+        for code in np.unique(codes[codes != 0]):
+            notes.append(f"  {n}: {int((codes == code).sum())} of {codes.size} stars NaN, star_status {code}: "
+                         f"{STAR_STATUS.get(int(code), 'unknown')}")
     for name, ens in run.ensembles.items():
         status = np.asarray(ens["status"])
         mm = np.asarray(ens["max_mass"])

@@ -226,8 +226,10 @@ def _why_missing(seq: EOSSequence, mass: float) -> str:
 def _targets_group(eos, seq: EOSSequence, masses, control) -> dict:
     masses = np.asarray(masses, dtype=float)
     stars = stars_at_masses(eos, seq, masses, control=control)
-    status = ["found" if np.isfinite(m) else _why_missing(seq, t)
-              for t, m in zip(masses, stars["mass"], strict=True)]
+    status = ["found" if np.isfinite(m)
+              else "not computed to tolerance within the step budget" if np.isfinite(code) and code != 0
+              else _why_missing(seq, t)
+              for t, m, code in zip(masses, stars["mass"], stars["star_status"], strict=True)]
     data = {"requested_mass": (masses, "Msun")}
     for k, unit in TARGET_DATASETS.items():
         if k != "requested_mass":
