@@ -18,8 +18,6 @@ each EOS also gets its own marker so curves stay apart in print.
 from __future__ import annotations
 
 import math
-import tomllib
-from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -30,7 +28,15 @@ from matplotlib.patches import Ellipse, Rectangle
 from matplotlib.ticker import NullFormatter
 
 from . import exterior, units
-from .errors import ConfigError, InputError
+from .constraints import (
+    BoxMeasurement,
+    Constraints,
+    EllipseMeasurement,
+    MassMeasurement,
+    load_constraints,
+    parse_constraints,
+)
+from .errors import InputError
 from .exports import FORBIDDEN_REGIONS, check_output_path
 from .sequence import EOSSequence
 
@@ -53,144 +59,6 @@ _MARKERS = ("o", "s", "^", "D", "v", "P", "X", "<", ">", "h")
 _REGION_GREYS = {"causality": "0.88", "buchdahl": "0.74", "horizon": "0.55"}
 _RADIUS_LABEL = "Radius R [km]"
 _MASS_LABEL = r"Mass M [M$_\odot$]"
-
-
-# --- constraints file -----------------------------------------------------------
-
-@dataclass(frozen=True)
-class MassMeasurement:
-    """A mass measurement M = mass +- sigma (Msun), drawn as a horizontal band."""
-
-    label: str
-    mass: float
-    sigma: float
-    two_sigma: bool = False
-
-
-@dataclass(frozen=True)
-class EllipseMeasurement:
-    """A correlated Gaussian (M, R) measurement, drawn as 1- and 2-sigma ellipses."""
-
-    label: str
-    mass: float
-    radius: float
-    sigma_mass: float
-    sigma_radius: float
-    correlation: float = 0.0
-
-
-@dataclass(frozen=True)
-class BoxMeasurement:
-    """A rectangular (M, R) region, e.g. a quoted range of both."""
-
-    label: str
-    mass_min: float
-    mass_max: float
-    radius_min: float
-    radius_max: float
-
-
-@dataclass
-class Constraints:
-    """The measurements of a constraints file, in file order per kind."""
-
-    title: str = ""
-    mass: list[MassMeasurement] = field(default_factory=list)
-    ellipse: list[EllipseMeasurement] = field(default_factory=list)
-    box: list[BoxMeasurement] = field(default_factory=list)
-
-
-#: Keys of every block: key -> (type, required); types: "label", "positive", "number", "bool".
-_CONSTRAINT_KEYS: dict[str, tuple[type, dict[str, tuple[str, bool]]]] = {
-    "mass": (MassMeasurement, {"label": ("label", True), "mass": ("positive", True),
-                               "sigma": ("positive", True), "two_sigma": ("bool", False)}),
-    "ellipse": (EllipseMeasurement, {"label": ("label", True), "mass": ("positive", True),
-                                     "radius": ("positive", True), "sigma_mass": ("positive", True),
-                                     "sigma_radius": ("positive", True), "correlation": ("number", False)}),
-    "box": (BoxMeasurement, {"label": ("label", True), "mass_min": ("positive", True),
-                             "mass_max": ("positive", True), "radius_min": ("positive", True),
-                             "radius_max": ("positive", True)}),
-}
-
-
-def _value(v, what: str, source: str, key: str):
-    if what == "label":
-        if not isinstance(v, str) or not v.strip():
-            raise ConfigError(f"needs a non-empty string, got {v!r}", source=source, key=key)
-        return v
-    if what == "bool":
-        if not isinstance(v, bool):
-            raise ConfigError(f"needs true or false, got {v!r}", source=source, key=key)
-        return v
-    if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
-        raise ConfigError(f"needs a finite number, got {v!r}", source=source, key=key)
-    if what == "positive" and v <= 0:
-        raise ConfigError(f"needs a positive number, got {v!r}", source=source, key=key)
-    return float(v)
-
-
-def parse_constraints(text: str, *, source: str = "<constraints>") -> Constraints:
-    """Validate constraints TOML text (see :func:`load_constraints`)."""
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"not valid TOML ({exc})", source=source) from None
-    allowed = {"title", *_CONSTRAINT_KEYS}
-    for k in data:
-        if k not in allowed:
-            raise ConfigError(f"unknown key (expected one of: {', '.join(sorted(allowed))})", source=source, key=k)
-    out = Constraints(title=_value(data["title"], "label", source, "title") if "title" in data else "")
-    for kind, (cls, keys) in _CONSTRAINT_KEYS.items():
-        blocks = data.get(kind, [])
-        if not isinstance(blocks, list) or not all(isinstance(b, dict) for b in blocks):
-            raise ConfigError(f"needs [[{kind}]] blocks", source=source, key=kind)
-        for i, block in enumerate(blocks):
-            where = f"{kind}[{i}]"
-            for k in block:
-                if k not in keys:
-                    raise ConfigError(f"unknown key (expected one of: {', '.join(keys)})",
-                                      source=source, key=f"{where}.{k}")
-            values = {}
-            for k, (what, required) in keys.items():
-                if k in block:
-                    values[k] = _value(block[k], what, source, f"{where}.{k}")
-                elif required:
-                    raise ConfigError("missing", source=source, key=f"{where}.{k}")
-            item = cls(**values)
-            _check_measurement(item, source, where)
-            getattr(out, kind).append(item)
-    return out
-
-
-def _check_measurement(item, source: str, where: str) -> None:
-    if isinstance(item, EllipseMeasurement) and not -1.0 < item.correlation < 1.0:
-        raise ConfigError(f"needs -1 < correlation < 1, got {item.correlation:g}",
-                          source=source, key=f"{where}.correlation")
-    if isinstance(item, BoxMeasurement):
-        for q in ("mass", "radius"):
-            if getattr(item, f"{q}_max") <= getattr(item, f"{q}_min"):
-                raise ConfigError(f"{q}_max must exceed {q}_min", source=source, key=f"{where}.{q}_max")
-
-
-def load_constraints(path: str | Path) -> Constraints:
-    """Read a constraints file: measurements to draw over the mass-radius curves.
-
-    Top-level keys: ``title`` (optional string) and arrays of tables
-    ``[[mass]]`` (label, mass, sigma, two_sigma), ``[[ellipse]]`` (label,
-    mass, radius, sigma_mass, sigma_radius, correlation) and ``[[box]]``
-    (label, mass_min, mass_max, radius_min, radius_max); masses in Msun,
-    radii in km.
-
-    Raises
-    ------
-    ConfigError
-        Naming the file and the dotted key (``ellipse[0].correlation``) for
-        unreadable TOML, unknown keys, missing keys, wrong types or values.
-    """
-    from .config import read_text_file
-
-    path = Path(path)
-    return parse_constraints(read_text_file(path, "constraints"), source=str(path))
 
 
 # --- drawing ------------------------------------------------------------------------
@@ -277,14 +145,20 @@ def _draw_constraints(ax, constraints: Constraints, handles: list) -> None:
     hatches = ("//", "\\\\", "xx", "..")
     for i, c in enumerate(constraints.mass):
         hatch = hatches[i % len(hatches)]
+        one, two = _mass_band(c)
         if c.two_sigma:
-            ax.axhspan(c.mass - 2 * c.sigma, c.mass + 2 * c.sigma, facecolor="none", edgecolor=grey,
-                       hatch=hatch, lw=0.0, alpha=0.35, zorder=1)
-        ax.axhspan(c.mass - c.sigma, c.mass + c.sigma, facecolor="none", edgecolor=grey, hatch=hatch,
-                   lw=0.6, zorder=1, gid=f"mass:{c.label}")
+            ax.axhspan(*two, facecolor="none", edgecolor=grey, hatch=hatch, lw=0.0, alpha=0.35, zorder=1)
+        ax.axhspan(*one, facecolor="none", edgecolor=grey, hatch=hatch, lw=0.6, zorder=1, gid=f"mass:{c.label}")
         sig = r" (1$\sigma$; faint: 2$\sigma$)" if c.two_sigma else ""
+        text = (f"{c.mass:g} $\\pm$ {c.sigma:g} M$_\\odot$" if c.samples is None
+                else f"{one[0]:.3g}-{one[1]:.3g} M$_\\odot$ (16-84 % of samples)")
         handles.append(Rectangle((0, 0), 1, 1, facecolor="none", edgecolor=grey, hatch=hatch,
-                                 label=f"{c.label}, {c.mass:g} $\\pm$ {c.sigma:g} M$_\\odot${sig}"))
+                                 label=f"{c.label}, {text}{sig}"))
+    for i, c in enumerate(constraints.mass_radius_samples):
+        pts = c.samples[:: max(1, len(c.samples) // 1500)]  # enough points to show the shape
+        ax.scatter(pts[:, 1], pts[:, 0], s=2, color=("0.15", "0.45")[i % 2], alpha=0.25, lw=0, zorder=2,
+                   gid=f"mass_radius_samples:{c.label}")
+        handles.append(Line2D([], [], color="0.15", marker=".", ls="none", label=f"{c.label} (samples)"))
     for i, c in enumerate(constraints.ellipse):
         ls = ("-", "--", ":", "-.")[i % 4]
         cov = np.array([[c.sigma_radius**2, c.correlation * c.sigma_radius * c.sigma_mass],
@@ -303,6 +177,14 @@ def _draw_constraints(ax, constraints: Constraints, handles: list) -> None:
                                gid=f"box:{c.label}"))
         handles.append(Rectangle((0, 0), 1, 1, facecolor=(0.1, 0.1, 0.1, 0.10), edgecolor="black", ls="-.",
                                  label=c.label))
+
+
+def _mass_band(c: MassMeasurement) -> tuple[tuple[float, float], tuple[float, float]]:
+    """1- and 2-sigma mass ranges: mean +- sigma, or the samples' 16-84 % and 2.3-97.7 % ranges."""
+    if c.samples is None:
+        return (c.mass - c.sigma, c.mass + c.sigma), (c.mass - 2 * c.sigma, c.mass + 2 * c.sigma)
+    q = np.quantile(c.samples, [0.16, 0.84, 0.023, 0.977])
+    return (float(q[0]), float(q[1])), (float(q[2]), float(q[3]))
 
 
 def _largest_finite(values, default: float) -> float:
@@ -324,7 +206,11 @@ def _mass_radius_limits(sequences, constraints: Constraints | None) -> tuple[tup
         r_hi.append(float(np.nanmax(np.asarray(s["radius"])[big])))
     if constraints is not None:
         for c in constraints.mass:
-            m_top = max(m_top, c.mass + (2 if c.two_sigma else 1) * c.sigma)
+            m_top = max(m_top, _mass_band(c)[1 if c.two_sigma else 0][1])
+        for c in constraints.mass_radius_samples:
+            m_top = max(m_top, float(np.quantile(c.samples[:, 0], 0.99)))
+            r_lo.append(float(np.quantile(c.samples[:, 1], 0.01)))
+            r_hi.append(float(np.quantile(c.samples[:, 1], 0.99)))
         for e in constraints.ellipse:
             m_top = max(m_top, e.mass + 2 * e.sigma_mass)
             r_lo.append(e.radius - 2 * e.sigma_radius)
