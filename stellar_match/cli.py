@@ -301,6 +301,85 @@ def cmd_redshift(args) -> int:
     return 0
 
 
+def _likelihood_report(scores) -> str:
+    """The lines `likelihood` prints: candidates with ln L and Bayes factors, ensembles with their posteriors."""
+    from .likelihood import LIKELIHOOD_STATUS
+
+    lines = [f"measurements with a likelihood ({len(scores.labels)}): {', '.join(scores.labels)}; "
+             f"mass prior uniform on the stable branch above {scores.constraints.mass_floor:g} Msun"]
+    if scores.candidates:
+        width = max(len(n) for n in scores.candidates) + 2
+        lines.append(f"{'EOS':<{width}}{'ln L':>10}  {'Bayes factor':>12}  note")
+        for c in sorted(scores.candidates.values(), key=lambda c: -c.log_likelihood
+                        if np.isfinite(c.log_likelihood) else np.inf):
+            note = "best" if c.log_bayes_factor == 0 else ""
+            if c.status:
+                note = LIKELIHOOD_STATUS[c.status]
+            lines.append(f"{c.name:<{width}}{c.log_likelihood:>10.3f}  {c.bayes_factor:>12.4g}  {note}".rstrip())
+    for e in scores.ensembles.values():
+        c = e.counts
+        lines.append(f"ensemble {e.name}: {c['scored']} of {c['members']} members scored "
+                     f"({c['zero_likelihood']} with L = 0), effective sample size {e.effective_sample_size:.1f}, "
+                     f"ln evidence {e.log_evidence:.3f}")
+        skipped = {**c["excluded_by_member_status"], **c["excluded_by_likelihood_status"]}
+        if skipped:
+            lines.append("  weight 0: " + ", ".join(f"{v} with status {k}" for k, v in skipped.items()))
+        for q, label, spec in (("max_mass", "M_max [Msun]", ".3f"), ("radius_at_1.4", "R(1.4) [km]", ".2f"),
+                               ("tidal_deformability_at_1.4", "Lambda(1.4)", ".0f")):
+            post, prior = e.quantiles[q], e.prior_quantiles[q]
+            lines.append(f"  {label:<14} posterior {_fmt(post[1], spec)} [{_fmt(post[0], spec)}, "
+                         f"{_fmt(post[2], spec)}]   prior {_fmt(prior[1], spec)} [{_fmt(prior[0], spec)}, "
+                         f"{_fmt(prior[2], spec)}]   (median [5 %, 95 %])")
+    return "\n".join(lines)
+
+
+def cmd_likelihood(args) -> int:
+    from .constraints import load_constraints
+    from .exports import check_output_path, parse_range
+    from .scoring import score_runs, write_scores
+
+    out = check_output_path(args.out, (".h5", ".hdf5"))
+    table_path = check_output_path(args.table, (".ecsv", ".csv")) if args.table else None
+    _refuse_run_file(out)
+    constraints = load_constraints(args.constraints)
+    masses = parse_range(args.band_masses, "--band-masses") if args.band_masses else None
+    runs = _read_runs(args.runs)
+    total = sum(e.size for r in runs for e in r.ensembles.values())
+    bar = _LazyBar(total, "scoring members") if total else None
+    try:
+        scores = score_runs(runs, constraints, band_masses=masses, eos=args.eos, ensembles=args.ensemble,
+                            progress=bar.update if bar else None)
+    finally:
+        if bar:
+            bar.close()
+    print(_likelihood_report(scores))
+    print(f"wrote {write_scores(scores, out)}")
+    if table_path is not None:
+        table = scores.table()
+        try:
+            table.write(table_path, format="ascii.ecsv" if table_path.suffix.lower() == ".ecsv" else "ascii.csv",
+                        overwrite=True)
+        except OSError as exc:
+            raise InputError(f"cannot write here ({exc.strerror or exc})", source=str(table_path)) from None
+        print(f"wrote {table_path} ({len(table)} rows)")
+    return 0
+
+
+def _refuse_run_file(path: Path) -> None:
+    """Never overwrite a run file with a results file."""
+    import h5py
+
+    if not path.is_file():
+        return
+    try:
+        with h5py.File(path, "r") as f:
+            is_run = f.attrs.get("format") == "stellar_match.run"
+    except OSError:
+        return
+    if is_run:
+        raise InputError("is a run file; the results go to a file of their own", source=str(path))
+
+
 class _OneLineParser(argparse.ArgumentParser):
     """argparse, but a usage mistake is one line on stderr and exit status 2."""
 
@@ -358,6 +437,19 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--observed-z", type=float, metavar="Z", help="list M and R ranges consistent with this z")
     s.add_argument("--sigma", type=float, metavar="S", help="1-sigma uncertainty of --observed-z")
     s.set_defaults(func=cmd_redshift)
+
+    s = sub.add_parser("likelihood", help="score run files against measurements: ln L, Bayes factors, "
+                       "ensemble weights and credible bands")
+    s.add_argument("runs", nargs="+", metavar="RUN.h5", help="one or more HDF5 run files (only read)")
+    s.add_argument("--constraints", required=True, metavar="FILE.toml", help="measurements (TOML constraints file)")
+    s.add_argument("-o", "--out", required=True, metavar="OUT.h5", help="results file to write (HDF5)")
+    s.add_argument("--table", metavar="OUT.ecsv", help="also a table, one row per EOS and ensemble (.ecsv or .csv)")
+    s.add_argument("--eos", action="extend", nargs="+", metavar="NAME", help="only these EOS (default: all)")
+    s.add_argument("--ensemble", action="extend", nargs="+", metavar="NAME",
+                   help="only these ensembles (default: all)")
+    s.add_argument("--band-masses", metavar="MIN:MAX:STEP",
+                   help="masses of the credible bands [Msun] (default: mass_floor to the heaviest member, step 0.02)")
+    s.set_defaults(func=cmd_likelihood)
     return p
 
 

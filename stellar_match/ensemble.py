@@ -46,6 +46,9 @@ class EnsembleSpec:
         Member parameters, columns in ``ENSEMBLE_KINDS[kind]`` order.
     origin : dict
         How the members were given (file and its sha256, or sampler ranges and seed).
+    prior_weight : ndarray, shape (members,), or None
+        Prior weight of each member, from a ``weight`` column of the members
+        CSV (None: every member weighs the same, as for sampled members).
     """
 
     index: int
@@ -53,6 +56,7 @@ class EnsembleSpec:
     kind: str
     parameters: np.ndarray = field(repr=False)
     origin: dict
+    prior_weight: np.ndarray | None = field(default=None, repr=False)
 
     @property
     def size(self) -> int:
@@ -100,7 +104,7 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         p = Path(path)
         if not p.is_absolute() and base_dir is not None:
             p = base_dir / p
-        params, sha = _read_members(p, names, source, f"{key}.members")
+        params, sha, prior_weight = _read_members(p, names, source, f"{key}.members")
         origin = {"members": str(p), "members_sha256": sha}
     else:
         spec = block["sample"]
@@ -127,9 +131,11 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         hi = np.array([r[1] for r in ranges])
         rng = np.random.Generator(np.random.PCG64(seed))
         params = lo + (hi - lo) * rng.random((count, len(names)))
+        prior_weight = None
         origin = {"sampler": "uniform", "generator": "numpy PCG64", "seed": seed,
                   "ranges": {n: list(r) for n, r in zip(names, ranges, strict=True)}}
-    return EnsembleSpec(index=index, name=name, kind=kind, parameters=params, origin=origin)
+    return EnsembleSpec(index=index, name=name, kind=kind, parameters=params, origin=origin,
+                        prior_weight=prior_weight)
 
 
 def _floats(values: list) -> list[float]:
@@ -143,7 +149,13 @@ def _floats(values: list) -> list[float]:
     return out
 
 
-def _read_members(path: Path, names: tuple[str, ...], source: str, key: str) -> tuple[np.ndarray, str]:
+#: Optional column of a members CSV: each member's prior weight (>= 0, not all 0).
+WEIGHT_COLUMN = "weight"
+
+
+def _read_members(path: Path, names: tuple[str, ...], source: str, key: str
+                  ) -> tuple[np.ndarray, str, np.ndarray | None]:
+    """(parameters (members, names), sha256 of the file, prior weights or None)."""
     import hashlib
 
     def fail(message: str, line: int | None = None) -> ConfigError:
@@ -164,6 +176,8 @@ def _read_members(path: Path, names: tuple[str, ...], source: str, key: str) -> 
     if missing:
         raise fail(f"lacks column(s) {', '.join(missing)}; header has {', '.join(header)}", lines[0][0])
     cols = [header.index(n) for n in names]
+    if WEIGHT_COLUMN in header:
+        cols.append(header.index(WEIGHT_COLUMN))
     rows = []
     for number, line in lines[1:]:
         fields = [f.strip() for f in line.split(",")]
@@ -177,7 +191,18 @@ def _read_members(path: Path, names: tuple[str, ...], source: str, key: str) -> 
         raise fail("no member rows")
     if len(rows) > 10**6:
         raise fail(f"{len(rows)} members; at most 1000000 per ensemble")
-    return np.array(rows), hashlib.sha256(raw).hexdigest()
+    table = np.array(rows)
+    weight = None
+    if WEIGHT_COLUMN in header:
+        weight = table[:, -1]
+        bad = np.flatnonzero(~np.isfinite(weight) | (weight < 0))
+        if bad.size:
+            raise fail(f"column {WEIGHT_COLUMN} needs finite numbers >= 0, got {weight[bad[0]]:g}",
+                       lines[1 + bad[0]][0])
+        if not weight.sum() > 0:
+            raise fail(f"column {WEIGHT_COLUMN} is 0 for every member")
+        table = table[:, :-1]
+    return table, hashlib.sha256(raw).hexdigest(), weight
 
 
 def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, values,
