@@ -206,12 +206,16 @@ def _read_members(path: Path, names: tuple[str, ...], source: str, key: str
 
 
 def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, values,
-                  control: StepControl) -> dict[str, np.ndarray]:
+                  control: StepControl, *, response: bool = True, refine: bool = True) -> dict[str, np.ndarray]:
     """Solve members ``start:stop`` over the sweep: 2-D per-star arrays and 1-D summaries.
 
     All valid members of the chunk are solved as one batch through an
     :class:`~stellar_match.eos.EOSStack` (results equal member-by-member
     solves to the last bit), and their maxima are refined together.
+    ``response=False`` skips the tidal and rotational response (k2, Lambda
+    and I are NaN), about twice as fast.  ``refine=False`` takes each
+    maximum from the parabola through the three samples around it instead of
+    fresh solves (for samplers: the refinement passes cost more than the sweep).
 
     Returns
     -------
@@ -252,7 +256,7 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
     member = np.repeat(np.arange(len(members)), n_stars)
     with np.errstate(all="ignore"):
         cols = star_columns(solve_interiors(stack.bind(member), np.concatenate(h_rows),
-                                                             control=control))
+                                            control=control, response=response))
     guesses, widths, analyses = [], [], []
     for k, row in enumerate(rows):
         sl = slice(k * n_stars, (k + 1) * n_stars)
@@ -270,7 +274,10 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
             x = np.log(np.sort(h_rows[k]))
             widths.append(float(np.median(np.diff(x))) if x.size > 1 else 1e-2)
 
-    x_max = _refine_maxima(stack, guesses, widths, control)
+    if refine:
+        x_max = _refine_maxima(stack, guesses, widths, control)
+    else:
+        x_max = _vertex_maxima(guesses, h_rows, {k: cols[k] for k in ("mass", "radius")}, n_stars)
     for k, row in enumerate(rows):
         a = analyses[k]
         if a is None:
@@ -304,6 +311,23 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
             out["status"][row] = 4
         elif np.any(out["star_status"][row] != 0):
             out["status"][row] = 6
+    return out
+
+
+def _vertex_maxima(guesses, h_rows, cols, n_stars) -> dict[int, tuple[float, float, float]]:
+    """Each member's maximum from a parabola in ln h_c through its three samples nearest the vertex."""
+    out = {}
+    for k, x_guess in guesses:
+        x = np.log(h_rows[k])
+        sl = slice(k * n_stars, (k + 1) * n_stars)
+        m, r = units.mass_to_geometric(cols["mass"][sl]), cols["radius"][sl]
+        ok = np.flatnonzero(np.isfinite(m) & np.isfinite(r))
+        if ok.size < 3:
+            continue
+        near = ok[np.argsort(np.abs(x[ok] - x_guess), kind="stable")[:3]]
+        t = x[near] - x_guess
+        out[k] = (float(x_guess), float(np.polyval(np.polyfit(t, m[near], 2), 0.0)),
+                  float(np.polyval(np.polyfit(t, r[near], 2), 0.0)))
     return out
 
 
