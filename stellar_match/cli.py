@@ -237,7 +237,39 @@ def cmd_demo(args) -> int:
     print(f"wrote {save_figure(figure, out_dir / 'demo_overlay.png')}")
     table = redshift_table(sequences, meta={"software": f"{PROG} {__version__}", "source_run_file": str(run_path)})
     print(f"wrote {write_table(table, out_dir / 'demo_redshift.ecsv')}")
+    _demo_likelihood(args, demo_dir, out_dir, run_path)
     return 0
+
+
+def _demo_likelihood(args, demo_dir: Path, out_dir: Path, run_path: Path) -> None:
+    """The demo's second half: a prior ensemble scored against the invented measurements."""
+    import re
+
+    from .constraints import load_constraints
+    from .plots import bands_from_results, overlay_figure, save_figure
+    from .scoring import score_runs, write_scores
+
+    prior_config = demo_dir / "demo_prior.toml"
+    if args.prior_members is not None:
+        text = prior_config.read_text()
+        prior_config.write_text(re.sub(r"(?m)^count = \d+", f"count = {args.prior_members}", text, count=1))
+    print(f"solving the prior ensemble of {prior_config.name} (about 30 s on 2 cores) ...")
+    prior_path = _run_sweep(prior_config, out_dir / "demo_prior.h5", force=True)
+    print(f"wrote {prior_path}")
+    constraints = load_constraints(demo_dir / "demo_constraints.toml")
+    scores = score_runs([run_path, prior_path], constraints)
+    print(_likelihood_report(scores))
+    results = write_scores(scores, out_dir / "demo_likelihood.h5")
+    print(f"wrote {results}")
+    table = scores.table()
+    table.write(out_dir / "demo_likelihood.ecsv", format="ascii.ecsv", overwrite=True)
+    print(f"wrote {out_dir / 'demo_likelihood.ecsv'}")
+    from .exports import select_sequences
+    from .runfile import read_run
+
+    figure = overlay_figure(select_sequences([read_run(run_path)]), constraints,
+                            bands=bands_from_results(results))
+    print(f"wrote {save_figure(figure, out_dir / 'demo_bands.png')}")
 
 
 def _read_runs(paths: list[str]):
@@ -246,12 +278,18 @@ def _read_runs(paths: list[str]):
 
 def cmd_overlay(args) -> int:
     from .exports import check_output_path, select_sequences
-    from .plots import FIGURE_FORMATS, load_constraints, overlay_figure, save_figure
+    from .plots import FIGURE_FORMATS, bands_from_results, ensemble_band, load_constraints, overlay_figure, save_figure
 
     out = check_output_path(args.out, FIGURE_FORMATS)
     constraints = load_constraints(args.constraints) if args.constraints else None
-    sequences = select_sequences(_read_runs(args.runs), args.eos)
-    save_figure(overlay_figure(sequences, constraints, panels=args.panels), out)
+    runs = _read_runs(args.runs)
+    sequences = select_sequences(runs, args.eos) if any(r.eos for r in runs) else []
+    if args.likelihood:  # posterior and prior bands of the scored ensembles
+        bands = bands_from_results(args.likelihood)
+    else:  # an ensemble run file alone: its prior band
+        floor = constraints.mass_floor if constraints is not None else 0.5
+        bands = [ensemble_band(r, n, mass_floor=floor) for r in runs for n in r.ensembles]
+    save_figure(overlay_figure(sequences, constraints, panels=args.panels and bool(sequences), bands=bands), out)
     print(f"wrote {out}")
     return 0
 
@@ -380,6 +418,16 @@ def _refuse_run_file(path: Path) -> None:
         raise InputError("is a run file; the results go to a file of their own", source=str(path))
 
 
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"needs a whole number, got {text!r}") from None
+    if not 1 <= value <= 10**6:
+        raise argparse.ArgumentTypeError(f"needs a whole number from 1 to 1000000, got {value}")
+    return value
+
+
 class _OneLineParser(argparse.ArgumentParser):
     """argparse, but a usage mistake is one line on stderr and exit status 2."""
 
@@ -416,6 +464,8 @@ def build_parser() -> argparse.ArgumentParser:
 
     s = sub.add_parser("demo", help="run the bundled demo (three invented candidate EOS)")
     s.add_argument("--out-dir", default="runs", help="folder for the demo outputs (default: ./runs)")
+    s.add_argument("--prior-members", type=_positive_int, metavar="N",
+                   help="members of the demo's prior ensemble (default: as in demo_prior.toml, 1000)")
     s.set_defaults(func=cmd_demo)
 
     s = sub.add_parser("overlay", help="plot mass-radius curves of run files over forbidden regions and measurements")
@@ -424,6 +474,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--eos", action="extend", nargs="+", metavar="NAME", help="only these EOS (default: all)")
     s.add_argument("--constraints", metavar="FILE.toml", help="measurements to draw (TOML constraints file)")
     s.add_argument("--panels", action="store_true", help="add M(rho_c), z(M) and Lambda(M) panels")
+    s.add_argument("--likelihood", metavar="RESULTS.h5",
+                   help="draw the prior and posterior R(M) bands of the ensembles scored in this results file")
     s.set_defaults(func=cmd_overlay)
 
     s = sub.add_parser("redshift", help="export surface redshifts and gravities for spectral fitting")

@@ -18,6 +18,7 @@ each EOS also gets its own marker so curves stay apart in print.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -49,6 +50,9 @@ __all__ = [
     "load_constraints",
     "parse_constraints",
     "overlay_figure",
+    "CredibleBand",
+    "ensemble_band",
+    "bands_from_results",
     "save_figure",
 ]
 
@@ -187,6 +191,99 @@ def _mass_band(c: MassMeasurement) -> tuple[tuple[float, float], tuple[float, fl
     return (float(q[0]), float(q[1])), (float(q[2]), float(q[3]))
 
 
+@dataclass(frozen=True)
+class CredibleBand:
+    """Quantiles of R(M) across an ensemble, for drawing.
+
+    Attributes
+    ----------
+    label : str
+        Legend text, e.g. ``"prior-2026 posterior"``.
+    mass : ndarray, shape (masses,)
+        Msun.
+    radius : ndarray, shape (5, masses)
+        km, at the levels 5, 16, 50, 84 and 95 % (:data:`stellar_match.scoring.BAND_LEVELS`).
+    which : {"posterior", "prior"}
+        Posterior bands are filled, prior bands outlined.
+    support : ndarray, shape (masses,), optional
+        Weight of the members whose stable branch reaches each mass; the band
+        is drawn where it is at least :data:`BAND_MIN_SUPPORT`.
+    """
+
+    label: str
+    mass: np.ndarray
+    radius: np.ndarray
+    which: str = "posterior"
+    support: np.ndarray | None = None
+
+
+#: Least weight of members reaching a mass for the band to be drawn there: above the heaviest
+#: members' maxima the quantiles describe a handful of members (our choice, stated in README).
+BAND_MIN_SUPPORT = 0.1
+
+
+def ensemble_band(run, name: str, *, masses=None, mass_floor: float = 0.5) -> CredibleBand:
+    """The prior band of R(M) of an ensemble of a run file (its members weighted by their prior)."""
+    from .scoring import BAND_MASS_STEP, ensemble_bands
+
+    summary = run.ensembles[name]
+    if masses is None:
+        ok = np.asarray(summary["status"]) == 0
+        top = np.nanmax(np.where(ok, summary["max_mass"], np.nan)) if ok.any() else np.nan
+        masses = (np.arange(mass_floor, top + 1e-9, BAND_MASS_STEP) if np.isfinite(top) and top > mass_floor
+                  else np.array([mass_floor]))
+    b = ensemble_bands(run, name, band_masses=masses, mass_floor=mass_floor)
+    return CredibleBand(f"{name}, prior", np.asarray(masses, dtype=float), b["radius"], "prior", b["support"])
+
+
+def bands_from_results(path, names: list[str] | None = None) -> list[CredibleBand]:
+    """Prior and posterior bands of R(M) of the ensembles of a likelihood results file."""
+    from .scoring import read_scores
+
+    res = read_scores(path)
+    out = []
+    for name, e in res["ensemble"].items():
+        if names and name not in names:
+            continue
+        out.append(CredibleBand(f"{name}, prior", e["band_mass"], e["band_radius_prior"], "prior",
+                                e["band_support_prior"]))
+        out.append(CredibleBand(f"{name}, posterior", e["band_mass"], e["band_radius"], "posterior",
+                                e["band_support"]))
+    return out
+
+
+#: Band colours: Okabe & Ito (2008, "Color Universal Design") blue and vermillion, readable by colour-blind readers.
+_BAND_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7")
+
+
+def _draw_bands(ax, bands: list[CredibleBand]) -> list:
+    """Posterior: 5-95 % light and 16-84 % darker fills with the median; prior: the same as outlines."""
+    handles = []
+    ensembles = list(dict.fromkeys(b.label.rsplit(", ", 1)[0] for b in bands))
+    for b in bands:
+        colour = _BAND_COLOURS[ensembles.index(b.label.rsplit(", ", 1)[0]) % len(_BAND_COLOURS)]
+        r = np.asarray(b.radius, dtype=float)
+        ok = np.all(np.isfinite(r), axis=0)
+        if b.support is not None:
+            ok &= np.asarray(b.support) >= BAND_MIN_SUPPORT
+        m = np.asarray(b.mass, dtype=float)[ok]
+        r = r[:, ok]
+        if not m.size:
+            continue
+        if b.which == "posterior":
+            ax.fill_betweenx(m, r[0], r[4], color=colour, alpha=0.18, lw=0, zorder=2, gid=f"band:{b.label}:90")
+            ax.fill_betweenx(m, r[1], r[3], color=colour, alpha=0.35, lw=0, zorder=2, gid=f"band:{b.label}:68")
+            ax.plot(r[2], m, color=colour, lw=1.2, zorder=2, gid=f"band:{b.label}:median")
+            handles.append(Rectangle((0, 0), 1, 1, facecolor=colour, alpha=0.35,
+                                     label=f"{b.label}: 68 % and 90 % bands"))
+        else:
+            for k, ls in ((0, "--"), (4, "--"), (1, ":"), (3, ":")):
+                ax.plot(r[k], m, color=colour, lw=1.0, ls=ls, zorder=2, gid=f"band:{b.label}:{k}")
+            handles.append(Line2D([], [], color=colour, lw=1.0, ls="--", label=f"{b.label}: 90 % (dashed), "
+                                  "68 % (dotted)"))
+    return handles
+
+
 def _largest_finite(values, default: float) -> float:
     """The largest finite value, or ``default`` when there is none (every star NaN: none solved)."""
     values = np.asarray(values, dtype=float)
@@ -194,9 +291,15 @@ def _largest_finite(values, default: float) -> float:
     return float(values.max()) if values.size else default
 
 
-def _mass_radius_limits(sequences, constraints: Constraints | None) -> tuple[tuple, tuple]:
+def _mass_radius_limits(sequences, constraints: Constraints | None, bands=()) -> tuple[tuple, tuple]:
     m_top = max([_largest_finite(s["mass"], 0.0) for _, s in sequences] + [0.5])
     r_lo, r_hi = [], []
+    for b in bands:
+        ok = np.isfinite(b.radius[0]) & np.isfinite(b.radius[-1])
+        if ok.any():
+            m_top = max(m_top, float(b.mass[ok].max()))
+            r_lo.append(float(np.min(b.radius[0][ok])))
+            r_hi.append(float(np.max(b.radius[-1][ok])))
     for _, s in sequences:
         # stable stars above 0.3 M_max: the light, huge stars would squeeze the interesting part
         big = s.stable & (np.asarray(s["mass"]) >= 0.3 * _largest_finite(s["mass"], np.inf))
@@ -233,6 +336,7 @@ def overlay_figure(
     *,
     panels: bool = False,
     title: str | None = None,
+    bands: list[CredibleBand] | None = None,
 ) -> Figure:
     """Mass-radius curves of several EOS over forbidden regions and measurements.
 
@@ -247,6 +351,9 @@ def overlay_figure(
         Lambda(M) panels beside the mass-radius plot.
     title : str, optional
         Figure title (default: the constraints file's ``title``).
+    bands : list of CredibleBand, optional
+        Credible bands of R(M) of ensembles (prior and/or posterior), from
+        :func:`ensemble_band` or :func:`bands_from_results`.
 
     Returns
     -------
@@ -255,8 +362,9 @@ def overlay_figure(
         ``"forbidden:<region>"`` for the region boundaries (M = R/(k GM_sun/c^2)),
         ``"<eos>:stable"``, ``"<eos>:unstable"``, ``"<eos>:max_mass"``.
     """
-    if not sequences:
-        raise InputError("no EOS to plot")
+    bands = list(bands or [])
+    if not sequences and not bands:
+        raise InputError("no EOS or ensemble to plot")
     tidal = any("tidal_deformability" in s.columns for _, s in sequences)
     if panels:
         rows = [["mr", "rho"], ["mr", "z"]] + ([["mr", "lam"]] if tidal else [])
@@ -270,10 +378,11 @@ def overlay_figure(
     colors = _palette(len(sequences))
     markers = [_MARKERS[i % len(_MARKERS)] for i in range(len(sequences))]
 
-    xlim, ylim = _mass_radius_limits(sequences, constraints)
+    xlim, ylim = _mass_radius_limits(sequences, constraints, bands)
     _forbidden(ax, xlim[1], ylim[1])
     handles = [_draw_sequence(ax, s, "radius", "mass", c, mk, label)
                for (label, s), c, mk in zip(sequences, colors, markers, strict=True)]
+    handles += _draw_bands(ax, bands)
     handles += [Line2D([], [], color="black", lw=1.9, label="stable branch"),
                 Line2D([], [], color="black", lw=1.3, ls=(0, (4, 2.5)), label="unstable branch"),
                 Line2D([], [], color="none", marker="o", mfc="white", mec="black", label="maximum mass")]
