@@ -375,7 +375,7 @@ def overlay_figure(
         fig = Figure(figsize=(7.6, 7.4), layout="constrained")
         ax = fig.add_subplot()
         axd = {"mr": ax}
-    colors = _palette(len(sequences))
+    colors = _palette(len(sequences)) if sequences else []
     markers = [_MARKERS[i % len(_MARKERS)] for i in range(len(sequences))]
 
     xlim, ylim = _mass_radius_limits(sequences, constraints, bands)
