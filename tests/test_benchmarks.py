@@ -41,3 +41,16 @@ def test_bench_sequence_small(tmp_path):
         assert report[key]["stars_per_second"] > 0, key
     assert "mass" in report["case1_sly"]["max_relative_error"]
     assert {"ratio_case1_over_case3", "response_cost_factor"} <= report.keys()
+
+
+def test_bench_likelihood_quick(tmp_path):
+    report = run_script("bench_likelihood.py", "--quick", json_path=tmp_path / "likelihood.json")
+    assert report["quick"] is True
+    calls = report["sampler_call"]
+    assert calls["goal_ms"] == 15.0
+    for key in ("default_4_measurements", "default_without_binary", "sweep_defaults_4_measurements"):
+        assert calls[key]["best_ms"] > 0 and calls[key]["stars"] == 60
+    # the same EOS and measurements: the sampler settings change ln L by far less than its meaning
+    assert abs(calls["default_4_measurements"]["log_likelihood"]
+               - calls["sweep_defaults_4_measurements"]["log_likelihood"]) < 1e-3
+    assert report["scoring"]["members_per_second"] > 0 and report["implied_1e6_members"]["total_hours"] > 0
