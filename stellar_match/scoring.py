@@ -508,23 +508,22 @@ def _bands(run, name, summary, usable, weightings: dict, masses: np.ndarray, mas
             if not active[a:b].any():
                 continue
             br = _member_branches(g, a, b, summary.summaries, usable & active, mass_floor)
-            for which, col, (lo, _hi), width in (("radius", 0, _RADIUS_RANGE, BAND_RADIUS_BIN),
-                                                ("log_lambda", 1, _LOG_LAMBDA_RANGE, BAND_LOG_LAMBDA_BIN)):
-                owner, query, value = values_at_masses(br, masses, which)
+            owner, query, (radius, log_lambda) = values_at_masses(br, masses, ("radius", "log_lambda"))
+            # a twin-star mass: its stars share the member's weight
+            pair = owner * masses.size + query
+            share = 1.0 / np.bincount(pair, minlength=(b - a) * masses.size)[pair]
+            for col, value, lo, width in ((0, radius, _RADIUS_RANGE[0], BAND_RADIUS_BIN),
+                                          (1, log_lambda, _LOG_LAMBDA_RANGE[0], BAND_LOG_LAMBDA_BIN)):
                 ok = np.isfinite(value)
-                owner, query, value = owner[ok], query[ok], value[ok]
-                # a twin-star mass: its stars share the member's weight
-                pair = owner * masses.size + query
-                share = 1.0 / np.bincount(pair, minlength=(b - a) * masses.size)[pair]
                 n_bins = hists[next(iter(hists))][col].shape[1]
-                bins = np.clip(((value - lo) / width).astype(np.int64), 0, n_bins - 1)
-                flat = query * n_bins + bins
+                bins = np.clip(((value[ok] - lo) / width).astype(np.int64), 0, n_bins - 1)
+                flat = query[ok] * n_bins + bins
                 for key, w in weightings.items():
-                    ww = w[a:b][owner] * share
+                    ww = w[a:b][owner[ok]] * share[ok]
                     hists[key][col] += np.bincount(flat, weights=ww, minlength=masses.size * n_bins).reshape(
                         masses.size, n_bins)
                     if col == 0:
-                        hists[key][2] += np.bincount(query, weights=ww, minlength=masses.size)
+                        hists[key][2] += np.bincount(query[ok], weights=ww, minlength=masses.size)
     out = {}
     for key, (hr, hl, support) in hists.items():
         radius = _histogram_quantiles(hr, _RADIUS_RANGE[0], BAND_RADIUS_BIN, BAND_LEVELS)
