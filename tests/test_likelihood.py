@@ -469,3 +469,15 @@ def test_short_emcee_chain(constraints):
     assert np.all(np.isfinite(lp[0])), lp[0]  # every walker starts inside the prior on a valid EOS
     assert np.all(np.isfinite(lp[-1]))  # a move to -inf is never accepted
     assert sampler.acceptance_fraction.mean() > 0  # the chain moved
+
+
+def test_example_and_demo_constraints_load():
+    # the README points at these files for every key: they must load and score
+    from conftest import EOS_TABLES
+
+    example = sm.load_constraints(EOS_TABLES.parent / "runs" / "example_constraints.toml")
+    assert len(example.scored()) == 4 and example.mass_radius_samples[0].samples.shape == (800, 2)
+    assert not example.box[0].likelihood and not example.ellipse[0].likelihood
+    demo = sm.load_constraints(EOS_TABLES / "demo_constraints.toml")
+    assert {m.kind for m in demo.scored()} == {"mass", "ellipse", "redshift", "binary"}
+    assert all("invented" in m.label for m in demo.all_measurements())
