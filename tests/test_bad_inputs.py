@@ -281,6 +281,8 @@ CASES = [
     constraints("constraints_not_toml", "[[mass]\n", "c.toml"),
     Case("constraints_missing", lambda folder, run: ["overlay", "good.h5", "-o", "fig.png", "--constraints",
                                                       "absent.toml"], ("absent.toml",)),
+    sweep_case("solver_ensemble_maxima", AXIS5 + '[solver]\nensemble_maxima = "guess"\n' + SLY_BLOCK,
+               "solver.ensemble_maxima"),
     # -- constraints scored by the likelihood command ------------------------------------------
     scored("likelihood_negative_sigma", '[[redshift]]\nlabel = "z"\nz = 0.3\nsigma = -0.02\n', "c.toml",
            "redshift[0].sigma"),
