@@ -359,9 +359,14 @@ def _likelihood_report(scores) -> str:
         lines.append(f"ensemble {e.name}: {c['scored']} of {c['members']} members scored "
                      f"({c['zero_likelihood']} with L = 0), effective sample size {e.effective_sample_size:.1f}, "
                      f"ln evidence {e.log_evidence:.3f}")
-        skipped = {**c["excluded_by_member_status"], **c["excluded_by_likelihood_status"]}
-        if skipped:
-            lines.append("  weight 0: " + ", ".join(f"{v} with status {k}" for k, v in skipped.items()))
+        from .schema import MEMBER_STATUS
+
+        for table, meanings, what in ((c["excluded_by_member_status"], MEMBER_STATUS, "member status"),
+                                      (c["excluded_by_likelihood_status"], LIKELIHOOD_STATUS, "likelihood status")):
+            for code, count in table.items():
+                lines.append(f"  weight 0: {count} with {what} {code} ({meanings[int(code)]})")
+        if c["scored"] and not e.weight.sum() > 0:
+            lines.append("  no member has L > 0: every weight is 0 (the measurements exclude the whole ensemble)")
         for q, label, spec in (("max_mass", "M_max [Msun]", ".3f"), ("radius_at_1.4", "R(1.4) [km]", ".2f"),
                                ("tidal_deformability_at_1.4", "Lambda(1.4)", ".0f")):
             post, prior = e.quantiles[q], e.prior_quantiles[q]

@@ -67,8 +67,8 @@ __all__ = [
     "parse_constraints",
 ]
 
-#: Default lower end (Msun) of the mass prior; the lightest neutron stars observed are near 1.2 Msun
-#: (common practice: a floor near 1 Msun keeps the puffed-up low-mass branch out of the prior).
+#: Default lower end (Msun) of the mass prior (common practice: a floor near 1 Msun keeps the puffed-up
+#: low-mass branch, which no observed neutron star is thought to occupy, out of the prior).
 DEFAULT_MASS_FLOOR = 1.0
 #: Fewest samples a sample file may give (fewer make a kernel density estimate meaningless; common practice).
 MIN_SAMPLES = 10

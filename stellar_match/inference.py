@@ -38,8 +38,8 @@ __all__ = ["EOSLikelihood", "DEFAULT_CENTRAL_DENSITIES", "SAMPLER_STEP_SCALE", "
 #: for Read et al. 2009 piecewise polytropes; widen it for other kinds).
 DEFAULT_CENTRAL_DENSITIES = np.geomspace(2.5e14, 4.0e15, 60)
 #: Default solver settings of a likelihood call: steps twice the sweep default and a per-star tolerance of
-#: 1e-4, which give relative errors near 1e-5 in M and R (measured against step_scale 0.25 for SLy; README)
-#: -- far below any measurement's width -- at half the cost.
+#: 5e-4, which give relative errors of 1e-5 (SLy) to 2e-4 (a stiff EOS) in M and R against step_scale 0.25,
+#: and ln L within about 6e-5 (README) -- far below any measurement's width -- at half the cost.
 SAMPLER_STEP_SCALE = 2.0
 SAMPLER_TOLERANCE = 5e-4
 
@@ -108,11 +108,29 @@ class EOSLikelihood:
                 f"parameters {', '.join(self.parameter_names)})")
 
     def __call__(self, parameters) -> float:
-        """Total ln L of one parameter vector (-inf for anything that cannot be scored; never raises)."""
+        """Total ln L of one parameter vector.
+
+        -inf for parameters that make no valid EOS or no usable sequence (it
+        never raises for those); a vector of the wrong length or type is a
+        caller's mistake and raises InputError, so that a sampler set up with
+        the wrong number of dimensions fails at once instead of sitting still.
+        """
+        theta = self._vector(parameters)
         try:
-            return float(self.details(parameters)["log_likelihood"])
+            return float(self.details(theta)["log_likelihood"])
         except (InputError, ValueError, FloatingPointError, OverflowError, ZeroDivisionError):
             return -math.inf
+
+    def _vector(self, parameters) -> np.ndarray:
+        try:
+            theta = np.asarray(parameters, dtype=float)
+        except (TypeError, ValueError):
+            raise InputError(f"needs {len(self.parameter_names)} numbers ({', '.join(self.parameter_names)}), "
+                             f"got {parameters!r}", key="parameters") from None
+        if theta.shape != (len(self.parameter_names),):
+            raise InputError(f"needs {len(self.parameter_names)} numbers ({', '.join(self.parameter_names)}), "
+                             f"got shape {theta.shape}", key="parameters")
+        return theta
 
     def details(self, parameters) -> dict:
         """ln L per measurement, the total, the member summaries and the status of one parameter vector.
@@ -124,7 +142,7 @@ class EOSLikelihood:
             ``member_status`` and ``likelihood_status`` with their meanings, and the
             :data:`~stellar_match.schema.MEMBER_SUMMARIES`.
         """
-        out = self.members(np.atleast_2d(np.asarray(parameters, dtype=float)))
+        out = self.members(self._vector(parameters)[None, :])
         return {k: (v[0] if isinstance(v, np.ndarray) and v.ndim >= 1 else v) for k, v in out.items()}
 
     def members(self, parameters, *, progress: Callable[[int], None] | None = None) -> dict[str, np.ndarray]:

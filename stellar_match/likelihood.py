@@ -38,10 +38,11 @@ half-normal density on Lambda-tilde >= 0 with P(Lambda-tilde < U) = c.
 
 Kernel density estimates are scipy.stats.gaussian_kde (bandwidth rule
 "scott", "silverman" or a factor), tabulated once on a grid of an eighth of
-the kernel width (ln rho by bicubic spline; the tabulation changes ln L by
-less than 1e-6, see tests/test_likelihood.py) over the samples' range plus
-:data:`KDE_REACH` kernel widths; beyond that reach the estimate is taken as
-zero (it is below e^-72 of one kernel's peak there).
+the kernel width (2-D: in whitened coordinates, ln rho by bicubic spline;
+the tabulation changes ln L by less than 1e-6, see tests/test_likelihood.py)
+over the samples' range plus :data:`KDE_REACH` kernel widths; beyond that
+reach the estimate is taken as zero (it is below e^-72 of one kernel's peak
+there).  Samples of (q, Lambda-tilde) are reflected about q = 1.
 """
 
 from __future__ import annotations
@@ -80,10 +81,13 @@ LIKELIHOOD_STATUS: dict[int, str] = {
     3: "the sweep starts above mass_floor on the stable branch: the lower end of the mass prior is not covered",
     4: "maximum mass not reached in the sweep: the upper end of the mass prior is not known",
     5: "no tidal deformability in the sweep (a binary measurement needs it)",
+    6: "a binary's lighter star can lie below the sweep's lightest star, which is stable: start the sweep lower",
 }
 #: Gauss-Legendre nodes per piece (each piece is split in SUBDIVISIONS intervals first).
 NODES = 8
 SUBDIVISIONS = 2
+#: Most intervals a piece is split into for a narrow measurement.
+MAX_SUBDIVISIONS = 4096
 #: Gauss-Legendre nodes in q for binaries: panels x nodes per panel.
 Q_PANELS, Q_NODES = 4, 12
 #: Kernel widths beyond the outermost sample where a kernel density estimate is taken as 0.
@@ -114,6 +118,8 @@ class StableBranches:
         :data:`LIKELIHOOD_STATUS` code of each sequence.
     mass_floor : float
     has_lambda : ndarray of bool, shape (n,)
+    sweep_start_stable : ndarray of bool, shape (n,)
+        The lightest star of the sweep is stable: the branch may continue below the sweep.
     """
 
     n: int
@@ -127,6 +133,7 @@ class StableBranches:
     status: np.ndarray
     mass_floor: float
     has_lambda: np.ndarray
+    sweep_start_stable: np.ndarray | None = None
 
     def __repr__(self) -> str:
         return f"StableBranches(n={self.n}, pieces={self.owner.size}, mass_floor={self.mass_floor:g})"
@@ -330,22 +337,26 @@ def stable_branches(central_pressure, mass, radius, stable, *, tidal_deformabili
     heaviest_star = np.max(np.where(st, m, -np.inf), axis=1, initial=-np.inf)
     piece_top = np.full(n, -np.inf)
     np.maximum.at(piece_top, owner, hi)
-    seq_max = np.where(np.isfinite(top_m), top_m, np.maximum(piece_top, heaviest_star))
+    seq_max = np.where(np.isfinite(top_m), np.maximum(top_m, heaviest_star), np.maximum(piece_top, heaviest_star))
     # a stable last star: the branch still rises where the sweep ends
     last = np.clip(n_good - 1, 0, n_stars - 1)
     rising_at_end = (n_good > 0) & st[rows, last]
     first_stable_above = (n_good > 0) & st[:, 0] & (m[:, 0] > mass_floor)
-    status[(status == 0) & ~np.isfinite(top_m) & rising_at_end] = 4
+    # a stable last star: the sweep ends on a rising branch (also a twin branch above a maximum
+    # that was found), so the top of the mass prior is not known
+    status[(status == 0) & rising_at_end] = 4
     status[(status == 0) & ~(seq_max >= mass_floor) & np.isfinite(seq_max)] = 2
     status[(status == 0) & ~np.any(st, axis=1)] = 1
     status[(status == 0) & first_stable_above] = 3
+    sweep_start_stable = (n_good > 0) & st[:, 0]
     has_lambda = np.zeros(n, bool)
     if owner.size:
         finite_l = np.all(np.isfinite(c_l), axis=1)
         has_lambda = np.bincount(owner, weights=(~finite_l).astype(float), minlength=n) == 0
     return StableBranches(n=n, owner=owner, mass=c_m, radius=c_r, log_lambda=c_l, floor_s=floor_s,
                           max_mass=seq_max, prior_length=prior_length, status=status, mass_floor=float(mass_floor),
-                          has_lambda=has_lambda & (np.bincount(owner, minlength=n) > 0))
+                          has_lambda=has_lambda & (np.bincount(owner, minlength=n) > 0),
+                          sweep_start_stable=sweep_start_stable)
 
 
 def _vertex(x, m, r, ti, tj, minimum: bool = False):
@@ -430,6 +441,7 @@ class _Tabulated1D:
         self._logcdf = CubicSpline(grid, logsumexp(log_ndtr(z), axis=0) + w)
         self._logsf = CubicSpline(grid, logsumexp(log_ndtr(-z), axis=0) + w)
         self.median = float(np.median(samples))
+        self.resolve = {"x": (width, float(samples.min()), float(samples.max()))}
 
     def logpdf(self, x):
         x = np.asarray(x, dtype=float)
@@ -450,6 +462,7 @@ class _Tabulated1D:
 class _Gaussian1D:
     def __init__(self, mean: float, sigma: float) -> None:
         self.mean, self.sigma, self.median = mean, sigma, mean
+        self.resolve = {"x": (sigma, mean, mean)}
 
     def logpdf(self, x):
         z = (np.asarray(x, dtype=float) - self.mean) / self.sigma
@@ -476,11 +489,22 @@ class _HalfNormal:
         return np.where(x >= 0, v, -np.inf)
 
 
+def _resolve_2d(cov: np.ndarray, lo, hi) -> dict:
+    """Widths in M and R that a curve crossing a 2-D Gaussian of covariance ``cov`` must resolve:
+    the conditional standard deviations sqrt(cov_ii (1 - rho^2))."""
+    rho2 = cov[0, 1] ** 2 / (cov[0, 0] * cov[1, 1])
+    keep = max(1.0 - rho2, 1e-12)
+    return {"m": (math.sqrt(cov[0, 0] * keep), float(lo[0]), float(hi[0])),
+            "r": (math.sqrt(cov[1, 1] * keep), float(lo[1]), float(hi[1]))}
+
+
 class _Gaussian2D:
     def __init__(self, mean, cov) -> None:
         self.mean = np.asarray(mean, dtype=float)
+        cov = np.asarray(cov, dtype=float)
         self.inv = np.linalg.inv(cov)
         self.norm = -math.log(2.0 * math.pi) - 0.5 * math.log(np.linalg.det(cov))
+        self.resolve = _resolve_2d(cov, self.mean, self.mean)
 
     def logpdf(self, a, b):
         da, db = np.asarray(a, dtype=float) - self.mean[0], np.asarray(b, dtype=float) - self.mean[1]
@@ -489,37 +513,68 @@ class _Gaussian2D:
 
 
 class _Tabulated2D:
-    """A 2-D kernel density estimate tabulated as ln rho on a grid, bicubic spline between nodes."""
+    """A 2-D kernel density estimate tabulated as ln rho, bicubic spline between nodes.
 
-    def __init__(self, samples: np.ndarray, bandwidth) -> None:
+    The grid lies in whitened coordinates u = L^-1 (x - centre), L the
+    Cholesky factor of the kernel covariance, where every kernel is a unit
+    circle: the grid's size and accuracy do not depend on how correlated the
+    samples are, and the estimate on the grid is one matrix product of the
+    kernels' separable factors, exp(-(u0 - u0_i)^2 / 2) exp(-(u1 - u1_i)^2 / 2)
+    (scipy's gaussian_kde gives the kernel covariance; its own evaluation
+    is the test reference).  ``reflect_first`` reflects the samples about
+    a boundary of the first coordinate and keeps a <= that boundary: mass
+    ratios q <= 1 of binary samples, whose estimate would otherwise leak
+    across q = 1 (the reflection method; Silverman 1986, "Density Estimation
+    for Statistics and Data Analysis", sec. 2.10, from memory).
+    """
+
+    def __init__(self, samples: np.ndarray, bandwidth, reflect_first: float | None = None) -> None:
         from scipy.interpolate import RectBivariateSpline
 
         kde = _kde(samples, bandwidth)
-        cov = kde.covariance
-        rho = cov[0, 1] / math.sqrt(cov[0, 0] * cov[1, 1])
-        axes = []
-        self.lo, self.hi = [], []
-        for d in range(2):
-            width = math.sqrt(cov[d, d])
-            lo = samples[:, d].min() - KDE_REACH * width
-            hi = samples[:, d].max() + KDE_REACH * width
-            step = KDE_SPACING * width * math.sqrt(max(1.0 - rho * rho, 0.05))
-            axes.append(np.linspace(lo, hi, int(math.ceil((hi - lo) / step)) + 1))
-            self.lo.append(lo)
-            self.hi.append(hi)
-        ga, gb = np.meshgrid(axes[0], axes[1], indexing="ij")
-        values = _chunked_logpdf(kde, np.vstack([ga.ravel(), gb.ravel()])).reshape(ga.shape)
+        cov = np.asarray(kde.covariance, dtype=float)
+        self._chol = np.linalg.cholesky(cov)
+        self._centre = samples.mean(axis=0)
+        points = samples
+        if reflect_first is not None:
+            points = np.vstack([samples, np.column_stack([2.0 * reflect_first - samples[:, 0], samples[:, 1]])])
+        u = np.linalg.solve(self._chol, (points - self._centre).T)
+        u_own = u[:, : samples.shape[0]]
+        self.lo = u_own.min(axis=1) - KDE_REACH
+        self.hi = u_own.max(axis=1) + KDE_REACH
+        axes = [np.linspace(self.lo[d], self.hi[d], int(math.ceil((self.hi[d] - self.lo[d]) / KDE_SPACING)) + 1)
+                for d in range(2)]
+        total = np.zeros((axes[0].size, axes[1].size))
+        for a in range(0, u.shape[1], 4096):  # bounded memory for many samples
+            f0 = np.exp(-0.5 * (axes[0][:, None] - u[0, None, a : a + 4096]) ** 2)
+            f1 = np.exp(-0.5 * (axes[1][:, None] - u[1, None, a : a + 4096]) ** 2)
+            total += f0 @ f1.T
+        log_norm = -math.log(samples.shape[0] * 2.0 * math.pi) - float(np.log(np.diag(self._chol)).sum())
+        with np.errstate(divide="ignore"):
+            values = np.log(np.maximum(total, _TINY)) + log_norm
+        self._floor = math.log(_TINY) + log_norm + 50.0  # below: no sample within reach (taken as 0)
+        self.reflect_first = reflect_first
         self._spline = RectBivariateSpline(axes[0], axes[1], values, kx=3, ky=3)
-        self.grid_points = ga.size
+        self.grid_points = total.size
+        self.resolve = _resolve_2d(cov, samples.min(axis=0), samples.max(axis=0))
 
     def logpdf(self, a, b):
-        a, b = np.asarray(a, dtype=float), np.asarray(b, dtype=float)
-        inside = (a >= self.lo[0]) & (a <= self.hi[0]) & (b >= self.lo[1]) & (b <= self.hi[1])
-        out = np.full(np.broadcast(a, b).shape, -np.inf)
+        a, b = np.broadcast_arrays(np.asarray(a, dtype=float), np.asarray(b, dtype=float))
+        shape = a.shape
+        x = np.vstack([a.ravel(), b.ravel()]) - self._centre[:, None]
+        u = np.linalg.solve(self._chol, x)
+        inside = np.all((u >= self.lo[:, None]) & (u <= self.hi[:, None]), axis=0) & np.all(np.isfinite(u), axis=0)
+        if self.reflect_first is not None:
+            inside &= a.ravel() <= self.reflect_first
+        out = np.full(u.shape[1], -np.inf)
         if inside.any():
-            aa, bb = np.broadcast_to(a, out.shape)[inside], np.broadcast_to(b, out.shape)[inside]
-            out[inside] = self._spline.ev(aa, bb)
-        return out
+            v = self._spline.ev(u[0, inside], u[1, inside])
+            out[inside] = np.where(v > self._floor, v, -np.inf)
+        return out.reshape(shape)
+
+
+#: Smallest tabulated kernel sum (the products of kernel factors underflow below about 1e-308).
+_TINY = 1e-280
 
 
 def density_of(measurement):
@@ -539,8 +594,9 @@ def density_of(measurement):
     if isinstance(measurement, MassRadiusSamples):
         return _Tabulated2D(np.asarray(measurement.samples, dtype=float), measurement.bandwidth)
     if isinstance(measurement, BinaryMeasurement):
-        if measurement.form == "samples":
-            return _Tabulated2D(np.asarray(measurement.samples, dtype=float), measurement.bandwidth)
+        if measurement.form == "samples":  # q <= 1: the estimate is reflected about q = 1
+            return _Tabulated2D(np.asarray(measurement.samples, dtype=float), measurement.bandwidth,
+                                reflect_first=1.0)
         if measurement.form == "upper_limit":
             return _HalfNormal(measurement.lambda_tilde_upper, measurement.credibility)
         return _Gaussian1D(measurement.lambda_tilde, measurement.sigma)
@@ -571,17 +627,42 @@ def _group_logsumexp(values: np.ndarray, group: np.ndarray, n: int) -> np.ndarra
         return np.where(total > 0, np.log(total) + safe, -np.inf)
 
 
-def _nodes(branches: StableBranches):
-    """Gauss-Legendre nodes over the part of every piece above the floor: (piece, s, ln weight in Msun)."""
+def _nodes(branches: StableBranches, resolve: dict | None = None):
+    """Gauss-Legendre nodes over the part of every piece above the floor: (piece, s, ln weight in Msun).
+
+    Each piece is split into at least SUBDIVISIONS intervals, and into more
+    where it crosses the measurement's region (``resolve``: axis -> (width,
+    low, high) for the axes "m", "r", "z"), so that no interval is longer
+    than the density's width there (8 nodes integrate a Gaussian over one
+    width to about 1e-10).
+    """
     g, w = np.polynomial.legendre.leggauss(NODES)
     keep = np.flatnonzero(branches.floor_s < 1.0)
     a = branches.floor_s[keep]
-    edges = a[:, None] + (1.0 - a[:, None]) * np.linspace(0.0, 1.0, SUBDIVISIONS + 1)[None, :]
-    lo, hi = edges[:, :-1, None], edges[:, 1:, None]
-    s = 0.5 * (hi + lo) + 0.5 * (hi - lo) * g[None, None, :]
-    piece = np.broadcast_to(keep[:, None, None], s.shape).ravel()
+    k = np.full(keep.size, SUBDIVISIONS)
+    if resolve:
+        ends = {"m": (_poly(branches.mass[keep], a), _poly(branches.mass[keep], 1.0)),
+                "r": (_poly(branches.radius[keep], a), _poly(branches.radius[keep], 1.0))}
+        if "z" in resolve:
+            with np.errstate(invalid="ignore", divide="ignore"):
+                ends["z"] = tuple(1.0 / np.sqrt(1.0 - 2.0 * units.SOLAR_MASS_KM * mm / rr) - 1.0
+                                  for mm, rr in zip(ends["m"], ends["r"], strict=True))
+        for axis, (width, lo, hi) in resolve.items():
+            e0, e1 = ends[axis]
+            near = (np.maximum(e0, e1) >= lo - KDE_REACH * width) & (np.minimum(e0, e1) <= hi + KDE_REACH * width)
+            with np.errstate(invalid="ignore"):
+                need = np.ceil(np.abs(e1 - e0) / width)
+            k = np.where(near & np.isfinite(need), np.maximum(k, np.minimum(need, MAX_SUBDIVISIONS)), k)
+    k = k.astype(np.int64)
+    piece_of_interval = np.repeat(np.arange(keep.size), k)
+    index = np.arange(piece_of_interval.size) - np.repeat(np.cumsum(k) - k, k)
+    a_i = a[piece_of_interval]
+    span = (1.0 - a_i) / k[piece_of_interval]
+    lo = a_i + index * span
+    s = (lo + 0.5 * span)[:, None] + 0.5 * span[:, None] * g[None, :]
+    piece = np.repeat(keep[piece_of_interval], NODES)
     s = s.ravel()
-    weight = (0.5 * (hi - lo) * w[None, None, :]).ravel() * np.abs(_dpoly(branches.mass[piece], s))
+    weight = (0.5 * span[:, None] * w[None, :]).ravel() * np.abs(_dpoly(branches.mass[piece], s))
     with np.errstate(divide="ignore"):
         return piece, s, np.log(weight)
 
@@ -595,9 +676,9 @@ def _log_mass_integral(branches: StableBranches, dist) -> np.ndarray:
                             branches.n)
 
 
-def _along_branch(branches: StableBranches, logpdf_of_star) -> np.ndarray:
+def _along_branch(branches: StableBranches, logpdf_of_star, resolve: dict | None = None) -> np.ndarray:
     """ln of the integral of a density of (M, R) along the stable branch above the floor, per sequence."""
-    piece, s, log_w = _nodes(branches)
+    piece, s, log_w = _nodes(branches, resolve)
     m, r = _poly(branches.mass[piece], s), _poly(branches.radius[piece], s)
     return _group_logsumexp(logpdf_of_star(m, r) + log_w, branches.owner[piece], branches.n)
 
@@ -727,7 +808,12 @@ def _binary(branches: StableBranches, meas: BinaryMeasurement, dist) -> np.ndarr
         per_q = logsumexp(logd.reshape(n, nq, -1), axis=2) - np.log(np.maximum(count, 1))
         per_q = np.where(count > 0, per_q, -np.inf)
         out = logsumexp(per_q + np.log(wq), axis=1)
-    return np.where(q_lo < 1.0, out, -np.inf) if q_min < 1.0 else out
+    out = np.where(q_lo < 1.0, out, -np.inf) if q_min < 1.0 else out
+    # the lighter star at q_min below the sweep's lightest star, which is stable: the branch goes on
+    # below the sweep, so part of the q range is missing from the sweep, not from the EOS
+    m2_min = q_min * mc * (1.0 + q_min) ** 0.2 / q_min**0.6
+    start = branches.sweep_start_stable if branches.sweep_start_stable is not None else np.zeros(n, bool)
+    return out, start & (m2_min < lowest)
 
 
 def log_likelihoods(branches: StableBranches, constraints: Constraints, *, densities: list | None = None
@@ -771,14 +857,15 @@ def _fill(out, status, branches, scored, densities, log_length, km_per_msun) -> 
         if isinstance(meas, MassMeasurement):
             v = _log_mass_integral(branches, dist) - log_length
         elif isinstance(meas, EllipseMeasurement | MassRadiusSamples):
-            v = _along_branch(branches, dist.logpdf) - log_length
+            v = _along_branch(branches, dist.logpdf, dist.resolve) - log_length
         elif isinstance(meas, RedshiftMeasurement):
             def z_of(m, r, dist=dist):
                 with np.errstate(invalid="ignore", divide="ignore"):
                     z = 1.0 / np.sqrt(1.0 - 2.0 * m * km_per_msun / r) - 1.0
                 return np.where(np.isfinite(z), dist.logpdf(np.where(np.isfinite(z), z, 0.0)), -np.inf)
-            v = _along_branch(branches, z_of) - log_length
+            v = _along_branch(branches, z_of, {"z": dist.resolve["x"]}) - log_length
         else:
-            v = _binary(branches, meas, dist)
+            v, below_sweep = _binary(branches, meas, dist)
             status[(status == 0) & ~branches.has_lambda] = 5
+            status[(status == 0) & below_sweep] = 6
         out[:, k] = v

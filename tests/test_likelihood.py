@@ -143,8 +143,17 @@ def binary_reference(mc, q_min, density, m_max=M_MAX):
         lt = float(sm.sequence.lambda_tilde(m1, m2, lambda_of_mass(m1), lambda_of_mass(m2)))
         return density(q, lt)
 
-    # the integrand drops to 0 where m1 passes M_max: split there
-    return quad(integrand, q_min, 1.0, epsabs=0.0, epsrel=1e-12, limit=400)[0] / (1.0 - q_min)
+    # the integrand drops to 0 where m1 passes M_max: split there (m1 falls with q)
+    from scipy.optimize import brentq
+
+    def m1_minus_max(q):
+        return mc * (1 + q) ** 0.2 / q**0.6 - m_max
+
+    points = [q_min, 1.0]
+    if m1_minus_max(q_min) > 0 > m1_minus_max(1.0):
+        points.insert(1, brentq(m1_minus_max, q_min, 1.0, xtol=1e-15))
+    return sum(quad(integrand, a, b, epsabs=0.0, epsrel=1e-12, limit=400)[0]
+               for a, b in zip(points[:-1], points[1:], strict=True)) / (1.0 - q_min)
 
 
 def test_binary_gaussian_against_quad(constraints):
@@ -171,7 +180,7 @@ def test_binary_component_off_the_branch_contributes_nothing():
     c = parse_constraints('[[binary]]\nlabel = "b"\nchirp_mass = 1.75\nq_min = 0.7\nlambda_tilde = 30\nsigma = 40\n')
     ll, _ = log_likelihoods(analytic_branches(), c)
     ref = binary_reference(1.75, 0.7, lambda q, lt: norm.pdf(lt, 30.0, 40.0))
-    assert ll[0, 0] == pytest.approx(math.log(ref), abs=2e-4)  # the quadrature nodes straddle the cut-off
+    assert ll[0, 0] == pytest.approx(math.log(ref), abs=RTOL)
 
 
 def samples_constraints(tmp_path, n=400, seed=3):
@@ -446,6 +455,9 @@ def test_sampler_call_matches_scoring_and_never_raises(constraints):
     assert value == pytest.approx(ll[0].sum(), abs=1e-3)
     for bad in ([34.4, 0.5, 3.0, 3.0], [np.nan] * 4, [1e3, 3.0, 3.0, 3.0], [34.4, 9.0, 9.0, 9.0]):
         assert like(bad) == -np.inf
+    for mistake in ([34.4, 3.0, 3.0], "abc", None):  # a caller's mistake raises: a sampler must not sit still
+        with pytest.raises(sm.InputError):
+            like(mistake)
     d = like.details([34.4, 0.5, 3.0, 3.0])
     assert d["member_status"] != 0 and d["log_likelihood"] == -np.inf
 
@@ -481,3 +493,87 @@ def test_example_and_demo_constraints_load():
     demo = sm.load_constraints(EOS_TABLES / "demo_constraints.toml")
     assert {m.kind for m in demo.scored()} == {"mass", "ellipse", "redshift", "binary"}
     assert all("invented" in m.label for m in demo.all_measurements())
+
+
+def test_sweep_ending_on_a_rising_twin_branch_is_flagged(constraints):
+    # a maximum at x = 1, then a twin branch still rising where the sweep ends: the prior's top is unknown
+    x = np.linspace(0.05, 2.6, 400)
+    m = np.where(x < 1.0, 2.0 * np.sin(0.5 * np.pi * x), 2.0 - 0.4 * np.sin(0.5 * np.pi * (x - 1.0)))
+    m = np.where(x < 2.0, m, 1.6 + 0.5 * np.sin(0.5 * np.pi * (x - 2.0)))
+    stable = (x < 1.0) | (x > 2.0)
+    br = stable_branches(np.exp(x), m, 13.0 - x, stable, max_mass=[2.0], max_mass_radius=[12.0])
+    ll, status = log_likelihoods(br, constraints)
+    assert status[0] == 4 and np.all(np.isnan(ll))
+    assert br.max_mass[0] >= m[-1]  # never below a stable star
+
+
+def test_narrow_measurements_are_resolved():
+    # sigma_M = 0.001 and sigma_z = 6e-5 (far narrower than the spacing of 60 stars) against quad
+    c = parse_constraints('[[ellipse]]\nlabel = "e"\nmass = 1.45\nradius = 12.6\nsigma_mass = 0.001\n'
+                          'sigma_radius = 0.02\n[[redshift]]\nlabel = "z"\nz = 0.24\nsigma = 6e-5\n')
+    x = np.linspace(0.05, 1.25, 60)
+    br = stable_branches(np.exp(x), curve_m(x), curve_r(x), x < 1.0, max_mass=[M_MAX],
+                         max_mass_radius=[curve_r(1.0)])
+    ll, _ = log_likelihoods(br, c)
+    # the reference: quad along the same pieces (their M(s), R(s)), split at every piece
+    from stellar_match.likelihood import _dpoly, _poly
+
+    mv = multivariate_normal([1.45, 12.6], [[1e-6, 0.0], [0.0, 4e-4]])
+
+    def along(density):
+        total = 0.0
+        for p in range(br.owner.size):
+            lo = br.floor_s[p]
+            if lo >= 1.0:
+                continue
+            total += quad(lambda t, p=p: density(_poly(br.mass[p], t), _poly(br.radius[p], t))
+                          * abs(_dpoly(br.mass[p], t)), lo, 1.0, epsabs=0.0, epsrel=1e-11, limit=200,
+                          points=None)[0]
+        return math.log(total / br.prior_length[0])
+
+    assert ll[0, 0] == pytest.approx(along(lambda m, r: mv.pdf([m, r])), abs=1e-5)
+    assert ll[0, 1] == pytest.approx(along(
+        lambda m, r: norm.pdf(1.0 / math.sqrt(1.0 - 2.0 * KM * m / r) - 1.0, 0.24, 6e-5)), abs=1e-5)
+
+
+def test_binary_below_the_sweep_is_flagged():
+    # the sweep starts at 1.3 Msun on the stable branch; q_min = 0.6 puts m2 near 1.0 Msun
+    c = parse_constraints("mass_floor = 1.35\n" + BINARY_ONLY)
+    x = np.linspace(x_at_mass(1.3), 1.25, 200)
+    br = stable_branches(np.exp(x), curve_m(x), curve_r(x), x < 1.0, tidal_deformability=curve_lambda(x),
+                         max_mass=[M_MAX], max_mass_radius=[curve_r(1.0)], mass_floor=1.35)
+    ll, status = log_likelihoods(br, c)
+    assert status[0] == 6 and np.isnan(ll[0, 0])
+
+
+BINARY_ONLY = '[[binary]]\nlabel = "b"\nchirp_mass = 1.19\nq_min = 0.6\nlambda_tilde = 350\nsigma = 120\n'
+
+
+@pytest.mark.parametrize("rho", [-0.99, 0.0, 0.95])
+def test_kde_tabulation_for_correlated_samples(rho):
+    rng = np.random.default_rng(8)
+    x = rng.multivariate_normal([1.5, 12.0], [[0.01, rho * 0.06], [rho * 0.06, 0.36]], size=300)
+    dist = sm.likelihood._Tabulated2D(x, "scott")
+    kde = gaussian_kde(x.T)
+    pts = x[:100].T
+    assert np.allclose(dist.logpdf(pts[0], pts[1]), kde.logpdf(pts), rtol=0, atol=1e-5)
+
+
+def test_binary_samples_reflected_at_q_equal_one():
+    rng = np.random.default_rng(9)
+    q = np.clip(1.0 - np.abs(rng.normal(0.0, 0.08, 400)), 0.7, 1.0)
+    lt = rng.normal(400.0, 60.0, 400)
+    dist = sm.likelihood._Tabulated2D(np.column_stack([q, lt]), "scott", reflect_first=1.0)
+    kde = gaussian_kde(np.vstack([q, lt]))
+    a, b = np.array([0.95, 0.99, 1.0]), np.array([400.0, 380.0, 420.0])
+    # the reflection estimate (Silverman 1986, sec. 2.10): the same kernels on the samples and on their
+    # mirror images q -> 2 - q, kept on q <= 1
+    from scipy.special import logsumexp as lse
+
+    mirrored = np.column_stack([2.0 - q, lt])
+    kernel = multivariate_normal(mean=[0.0, 0.0], cov=kde.covariance)
+    pts = np.column_stack([a, b])
+    mirror = np.array([lse(kernel.logpdf(p - mirrored)) - math.log(q.size) for p in pts])
+    expected = np.logaddexp(kde.logpdf(pts.T), mirror)
+    assert np.allclose(dist.logpdf(a, b), expected, atol=1e-5)
+    assert dist.logpdf(np.array([1.01]), np.array([400.0]))[0] == -np.inf
