@@ -54,6 +54,12 @@ class EnsembleSpec:
     parameters: np.ndarray = field(repr=False)
     origin: dict
 
+    def __repr__(self) -> str:
+        o = self.origin
+        where = f"members from {o['members']}" if "members" in o else (
+            f"sampled, seed {o['seed']}" if "seed" in o else "members given")
+        return f"EnsembleSpec({self.name!r}, kind={self.kind!r}, {self.size} members, {where})"
+
     @property
     def size(self) -> int:
         return int(self.parameters.shape[0])
