@@ -131,7 +131,7 @@ def test_cli_writes_figure_for_one_and_several_runs(runs, tmp_path, run_cli, ext
     assert code == 0, err
     assert one.read_bytes().startswith(magic)
     several = tmp_path / f"several.{ext}"
-    code, out, err = run_cli("overlay", runs[0], runs[1], "-o", several, "--panels", "--eos", "sly", "stiff")
+    code, out, err = run_cli("overlay", runs[0], runs[1], "-o", several, "--panels", "--eos", "sly", "--eos", "stiff")
     assert code == 0, err
     assert several.read_bytes().startswith(magic)
 
@@ -146,7 +146,7 @@ def test_demo_writes_overlay_and_redshift_table(runs, tmp_path, run_cli, monkeyp
     from stellar_match import cli
 
     # the demo sweep itself is tested in test_cli.py; a small run stands in for it here
-    monkeypatch.setattr(cli, "_run_sweep", lambda config, out, force: shutil.copyfile(runs[0], out))
+    monkeypatch.setattr(cli, "_run_sweep", lambda config, out, force, **kw: shutil.copyfile(runs[0], out))
     code, out, err = run_cli("demo", "--out-dir", tmp_path / "demo")
     assert code == 0, err
     assert (tmp_path / "demo" / "demo_overlay.png").read_bytes().startswith(b"\x89PNG")
