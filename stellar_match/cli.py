@@ -167,14 +167,16 @@ def summary_table(run) -> str:
     return "\n".join(lines + notes)
 
 
-def _run_sweep(config_path: Path, out: Path | None, force: bool, *, resume: bool = False,
+def _run_sweep(config, out: Path | None, force: bool, *, resume: bool = False,
                workers: int = 1, scheduler: str | None = None,
                log_interval: float = DEFAULT_LOG_INTERVAL) -> Path:
-    from .config import load_config
+    """Run a config (its path, or a loaded SweepConfig) with progress on stderr and the CLI's signals."""
+    from .config import SweepConfig, load_config
     from .sweep import run_config
 
-    config = load_config(config_path)
-    out = out if out is not None else config_path.with_suffix(".h5")
+    if not isinstance(config, SweepConfig):
+        config = load_config(config)
+    out = out if out is not None else config.path.with_suffix(".h5")
     total = config.axis.values.size * (len(config.eos) + sum(e.size for e in config.ensembles))
     members = sum(e.size for e in config.ensembles)
     progress = _Progress(total, members, interval=log_interval)
@@ -197,22 +199,25 @@ def _duration(seconds: float) -> str:
 
 
 class _Progress:
-    """Progress of a sweep on stderr: a bar on a terminal, else a log line every ``interval`` s.
+    """Progress of long work on stderr: a bar on a terminal, else a log line every ``interval`` s.
 
-    The bar (tqdm) appears with the first finished chunk, so that input
-    errors found while building the EOS print as one clean line; it shows
-    stars/s, members/s (ensembles) and the time left.  Where stderr is no
-    terminal (a batch job's log file, a pipe), an INFO line of the
-    ``stellar_match.cli`` logger says the stars and members done, the rates
-    and the time left, at most every ``interval`` seconds and the first one
+    Called as ``progress(done, members)`` per finished piece (a sweep's
+    chunk: its stars and ensemble members).  The bar (tqdm) appears with the
+    first piece, so that input errors found before it print as one clean
+    line; it shows the rate, members/s (ensembles) and the time left.  Where
+    stderr is no terminal (a batch job's log file, a pipe), an INFO line of
+    the ``stellar_match.cli`` logger says how much is done, the rates and
+    the time left, at most every ``interval`` seconds and the first one
     ``interval`` seconds after the start, so a short run prints nothing
     extra; a run that printed progress lines ends with a ``done`` line.
-    Chunks found finished on resume count as done but not in the rates.
+    With ``-q`` neither is shown.  Chunks found finished on resume
+    (:meth:`resumed`) count as done but not in the rates.
     """
 
-    def __init__(self, total: int, members: int = 0, *, interval: float = DEFAULT_LOG_INTERVAL) -> None:
-        self.total, self.members, self.interval = total, members, interval
-        self.done = self.done_members = self.resumed_stars = self.resumed_members = 0
+    def __init__(self, total: int, members: int = 0, *, interval: float = DEFAULT_LOG_INTERVAL,
+                 what: str = "sweep", unit: str = "star") -> None:
+        self.total, self.members, self.interval, self.what, self.unit = total, members, interval, what, unit
+        self.done = self.done_members = self.resumed_done = self.resumed_members = 0
         self.start = self.last = time.monotonic()
         self.lines = 0
         self.bar = None
@@ -220,32 +225,32 @@ class _Progress:
         self.use_bar = shown and sys.stderr.isatty()
         self.use_log = shown and not self.use_bar
 
-    def resumed(self, stars: int, members: int = 0) -> None:
-        """Chunks finished by an earlier run: done, but not computed now."""
-        self.resumed_stars += stars
+    def resumed(self, done: int, members: int = 0) -> None:
+        """Pieces finished by an earlier run: done, but not computed now."""
+        self.resumed_done += done
         self.resumed_members += members
-        self.start = self.last = time.monotonic()  # the rates start with the first chunk computed now
-        self._count(stars, members)
+        self.start = self.last = time.monotonic()  # the rates start with the first piece computed now
+        self._count(done, members)
 
-    def __call__(self, stars: int, members: int = 0) -> None:
-        self._count(stars, members)
+    def __call__(self, done: int, members: int = 0) -> None:
+        self._count(done, members)
         now = time.monotonic()
         if self.use_log and now - self.last >= self.interval:
-            logger.info("sweep: %s", self._status(now))
+            logger.info("%s: %s", self.what, self._status(now))
             self.last = now
             self.lines += 1
 
-    def _count(self, stars: int, members: int) -> None:
-        self.done += stars
+    def _count(self, done: int, members: int) -> None:
+        self.done += done
         self.done_members += members
         if not self.use_bar:
             return
         if self.bar is None:
             from tqdm import tqdm
 
-            self.bar = tqdm(total=self.total, desc="sweep", unit="star", file=sys.stderr, dynamic_ncols=True,
+            self.bar = tqdm(total=self.total, desc=self.what, unit=self.unit, file=sys.stderr, dynamic_ncols=True,
                             leave=False)
-        self.bar.update(stars)
+        self.bar.update(done)
         if self.members:
             rate = (self.done_members - self.resumed_members) / max(time.monotonic() - self.start, 1e-9)
             self.bar.set_postfix_str(f"{self.done_members}/{self.members} members, {rate:.1f} members/s",
@@ -253,17 +258,18 @@ class _Progress:
 
     def _status(self, now: float) -> str:
         elapsed = max(now - self.start, 1e-9)
-        rate = (self.done - self.resumed_stars) / elapsed
-        text = f"{self.done}/{self.total} stars ({100.0 * self.done / max(self.total, 1):.1f} %)"
+        rate = (self.done - self.resumed_done) / elapsed
+        units = f"{self.unit}s"
+        text = f"{self.done}/{self.total} {units} ({100.0 * self.done / max(self.total, 1):.1f} %)"
         if self.members:
             text += f", {self.done_members}/{self.members} members"
-        text += f", {rate:.4g} stars/s"
+        text += f", {rate:.4g} {units}/s"
         if self.members:
             text += f", {(self.done_members - self.resumed_members) / elapsed:.4g} members/s"
         left = self.total - self.done
         text += f", ETA {_duration(left / rate)}" if rate > 0 else (", ETA unknown" if left else "")
-        if self.resumed_stars:
-            text += f" ({self.resumed_stars} stars from resumed chunks)"
+        if self.resumed_done:
+            text += f" ({self.resumed_done} {units} from resumed chunks)"
         return text
 
     def close(self, finished: bool = False) -> None:
@@ -271,7 +277,8 @@ class _Progress:
             self.bar.close()
             self.bar = None
         if finished and self.lines:
-            logger.info("sweep: done, %d stars in %s", self.done, _duration(time.monotonic() - self.start))
+            logger.info("%s: done, %d %ss in %s", self.what, self.done, self.unit,
+                        _duration(time.monotonic() - self.start))
             self.lines = 0
 
 
@@ -349,7 +356,41 @@ def cmd_demo(args) -> int:
     print(f"wrote {save_figure(figure, out_dir / 'demo_overlay.png')}")
     table = redshift_table(sequences, meta={"software": f"{PROG} {__version__}", "source_run_file": str(run_path)})
     print(f"wrote {write_table(table, out_dir / 'demo_redshift.ecsv')}")
+    _demo_likelihood(args, demo_dir, out_dir, run_path)
     return 0
+
+
+def _demo_likelihood(args, demo_dir: Path, out_dir: Path, run_path: Path) -> None:
+    """The demo's second half: a prior ensemble scored against the invented measurements."""
+    import re
+
+    from .config import load_config, parse_config
+    from .constraints import load_constraints
+    from .plots import bands_from_results, overlay_figure, save_figure
+    from .scoring import score_runs, write_scores
+
+    prior_config = demo_dir / "demo_prior.toml"
+    config = load_config(prior_config)
+    if args.prior_members is not None:  # the config solved (and stored in the run file), not the user's copy
+        text = re.sub(r"(?m)^count = \d+", f"count = {args.prior_members}", config.text, count=1)
+        config = parse_config(text, source=str(prior_config), base_dir=demo_dir)
+    print(f"solving the prior ensemble of {prior_config.name} (about 30 s on 2 cores) ...")
+    prior_path = _run_sweep(config, out_dir / "demo_prior.h5", force=True, log_interval=args.log_interval)
+    print(f"wrote {prior_path}")
+    constraints = load_constraints(demo_dir / "demo_constraints.toml")
+    scores = score_runs([run_path, prior_path], constraints)
+    print(_likelihood_report(scores))
+    results = write_scores(scores, out_dir / "demo_likelihood.h5")
+    print(f"wrote {results}")
+    table = scores.table()
+    table.write(out_dir / "demo_likelihood.ecsv", format="ascii.ecsv", overwrite=True)
+    print(f"wrote {out_dir / 'demo_likelihood.ecsv'}")
+    from .exports import select_sequences
+    from .runfile import read_run
+
+    figure = overlay_figure(select_sequences([read_run(run_path)]), constraints,
+                            bands=bands_from_results(results))
+    print(f"wrote {save_figure(figure, out_dir / 'demo_bands.png')}")
 
 
 def _read_runs(paths: list[str]):
@@ -370,13 +411,19 @@ def _central_axis(runs) -> str:
 
 def cmd_overlay(args) -> int:
     from .exports import check_output_path, select_sequences
-    from .plots import FIGURE_FORMATS, load_constraints, overlay_figure, save_figure
+    from .plots import FIGURE_FORMATS, bands_from_results, ensemble_band, load_constraints, overlay_figure, save_figure
 
     out = check_output_path(args.out, FIGURE_FORMATS)
     constraints = load_constraints(args.constraints) if args.constraints else None
     runs = _read_runs(args.runs)
-    sequences = select_sequences(runs, args.eos)
-    save_figure(overlay_figure(sequences, constraints, panels=args.panels, central=_central_axis(runs)), out)
+    sequences = select_sequences(runs, args.eos) if any(r.eos for r in runs) else []
+    if args.likelihood:  # posterior and prior bands of the scored ensembles
+        bands = bands_from_results(args.likelihood)
+    else:  # an ensemble run file alone: its prior band
+        floor = constraints.mass_floor if constraints is not None else 0.5
+        bands = [ensemble_band(r, n, mass_floor=floor) for r in runs for n in r.ensembles]
+    save_figure(overlay_figure(sequences, constraints, panels=args.panels and bool(sequences), bands=bands,
+                               central=_central_axis(runs)), out)
     print(f"wrote {out}")
     return 0
 
@@ -424,6 +471,97 @@ def cmd_redshift(args) -> int:
     if out is not None:
         print(f"wrote {exports.write_table(table, out)} ({len(table)} rows)")
     return 0
+
+
+def _likelihood_report(scores) -> str:
+    """The lines `likelihood` prints: candidates with ln L and Bayes factors, ensembles with their posteriors."""
+    from .likelihood import LIKELIHOOD_STATUS
+
+    lines = [f"measurements with a likelihood ({len(scores.labels)}): {', '.join(scores.labels)}; "
+             f"mass prior uniform on the stable branch above {scores.constraints.mass_floor:g} Msun"]
+    if scores.candidates:
+        width = max(len(n) for n in scores.candidates) + 2
+        lines.append(f"{'EOS':<{width}}{'ln L':>10}  {'Bayes factor':>12}  note")
+        for c in sorted(scores.candidates.values(), key=lambda c: -c.log_likelihood
+                        if np.isfinite(c.log_likelihood) else np.inf):
+            note = "best" if c.log_bayes_factor == 0 else ""
+            if c.status:
+                note = LIKELIHOOD_STATUS[c.status]
+            lines.append(f"{c.name:<{width}}{c.log_likelihood:>10.3f}  {c.bayes_factor:>12.4g}  {note}".rstrip())
+    for e in scores.ensembles.values():
+        c = e.counts
+        lines.append(f"ensemble {e.name}: {c['scored']} of {c['members']} members scored "
+                     f"({c['zero_likelihood']} with L = 0), effective sample size {e.effective_sample_size:.1f}, "
+                     f"ln evidence {e.log_evidence:.3f}")
+        skipped = {**c["excluded_by_member_status"], **c["excluded_by_likelihood_status"]}
+        if skipped:
+            lines.append("  weight 0: " + ", ".join(f"{v} with status {k}" for k, v in skipped.items()))
+        for q, label, spec in (("max_mass", "M_max [Msun]", ".3f"), ("radius_at_1.4", "R(1.4) [km]", ".2f"),
+                               ("tidal_deformability_at_1.4", "Lambda(1.4)", ".0f")):
+            post, prior = e.quantiles[q], e.prior_quantiles[q]
+            lines.append(f"  {label:<14} posterior {_fmt(post[1], spec)} [{_fmt(post[0], spec)}, "
+                         f"{_fmt(post[2], spec)}]   prior {_fmt(prior[1], spec)} [{_fmt(prior[0], spec)}, "
+                         f"{_fmt(prior[2], spec)}]   (median [5 %, 95 %])")
+    return "\n".join(lines)
+
+
+def cmd_likelihood(args) -> int:
+    from .constraints import load_constraints
+    from .exports import check_output_path, parse_range
+    from .scoring import score_runs, write_scores
+
+    out = check_output_path(args.out, (".h5", ".hdf5"))
+    table_path = check_output_path(args.table, (".ecsv", ".csv")) if args.table else None
+    _refuse_run_file(out)
+    constraints = load_constraints(args.constraints)
+    masses = parse_range(args.band_masses, "--band-masses") if args.band_masses else None
+    runs = _read_runs(args.runs)
+    total = sum(e.size for r in runs for e in r.ensembles.values())
+    bar = _Progress(total, what="scoring", unit="member") if total else None
+    try:
+        scores = score_runs(runs, constraints, band_masses=masses, eos=args.eos, ensembles=args.ensemble,
+                            progress=bar)
+        if bar:
+            bar.close(finished=True)
+    finally:
+        if bar:
+            bar.close()
+    print(_likelihood_report(scores))
+    print(f"wrote {write_scores(scores, out)}")
+    if table_path is not None:
+        table = scores.table()
+        try:
+            table.write(table_path, format="ascii.ecsv" if table_path.suffix.lower() == ".ecsv" else "ascii.csv",
+                        overwrite=True)
+        except OSError as exc:
+            raise InputError(f"cannot write here ({exc.strerror or exc})", source=str(table_path)) from None
+        print(f"wrote {table_path} ({len(table)} rows)")
+    return 0
+
+
+def _refuse_run_file(path: Path) -> None:
+    """Never overwrite a run file with a results file."""
+    import h5py
+
+    if not path.is_file():
+        return
+    try:
+        with h5py.File(path, "r") as f:
+            is_run = f.attrs.get("format") == "stellar_match.run"
+    except OSError:
+        return
+    if is_run:
+        raise InputError("is a run file; the results go to a file of their own", source=str(path))
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"needs a whole number, got {text!r}") from None
+    if not 1 <= value <= 10**6:
+        raise argparse.ArgumentTypeError(f"needs a whole number from 1 to 1000000, got {value}")
+    return value
 
 
 class _OneLineParser(argparse.ArgumentParser):
@@ -521,6 +659,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--out-dir", default="runs", help="folder for the demo outputs (default: ./runs)")
     s.add_argument("--force", action="store_true",
                    help="overwrite files in OUT_DIR/demo_inputs that differ from the bundled ones (edited)")
+    s.add_argument("--prior-members", type=_positive_int, metavar="N",
+                   help="members of the demo's prior ensemble (default: as in demo_prior.toml, 1000)")
     _add_log_interval(s)
     s.set_defaults(func=cmd_demo)
 
@@ -531,6 +671,8 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--constraints", metavar="FILE.toml", help="measurements to draw (TOML constraints file)")
     s.add_argument("--panels", action="store_true",
                    help="add M(rho_c) (M(p_c) for central-pressure sweeps), z(M) and Lambda(M) panels")
+    s.add_argument("--likelihood", metavar="RESULTS.h5",
+                   help="draw the prior and posterior R(M) bands of the ensembles scored in this results file")
     s.set_defaults(func=cmd_overlay)
 
     s = command("redshift", help="export surface redshifts and gravities for spectral fitting")
@@ -544,6 +686,19 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--observed-z", type=float, metavar="Z", help="list M and R ranges consistent with this z")
     s.add_argument("--sigma", type=float, metavar="S", help="1-sigma uncertainty of --observed-z")
     s.set_defaults(func=cmd_redshift)
+
+    s = command("likelihood", help="score run files against measurements: ln L, Bayes factors, "
+                "ensemble weights and credible bands")
+    s.add_argument("runs", nargs="+", metavar="RUN.h5", help="one or more HDF5 run files (only read)")
+    s.add_argument("--constraints", required=True, metavar="FILE.toml", help="measurements (TOML constraints file)")
+    s.add_argument("-o", "--out", required=True, metavar="OUT.h5", help="results file to write (HDF5)")
+    s.add_argument("--table", metavar="OUT.ecsv", help="also a table, one row per EOS and ensemble (.ecsv or .csv)")
+    _add_eos_filter(s)
+    s.add_argument("--ensemble", action="append", metavar="NAME",
+                   help="only this ensemble; repeat for more (default: all)")
+    s.add_argument("--band-masses", metavar="MIN:MAX:STEP",
+                   help="masses of the credible bands [Msun] (default: mass_floor to the heaviest member, step 0.02)")
+    s.set_defaults(func=cmd_likelihood)
     return p
 
 

@@ -46,6 +46,9 @@ class EnsembleSpec:
         Member parameters, columns in ``ENSEMBLE_KINDS[kind]`` order.
     origin : dict
         How the members were given (file and its sha256, or sampler ranges and seed).
+    prior_weight : ndarray, shape (members,), or None
+        Prior weight of each member, from a ``weight`` column of the members
+        CSV (None: every member weighs the same, as for sampled members).
     """
 
     index: int
@@ -53,6 +56,7 @@ class EnsembleSpec:
     kind: str
     parameters: np.ndarray = field(repr=False)
     origin: dict
+    prior_weight: np.ndarray | None = field(default=None, repr=False)
 
     def __repr__(self) -> str:
         o = self.origin
@@ -106,7 +110,7 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         p = Path(path)
         if not p.is_absolute() and base_dir is not None:
             p = base_dir / p
-        params, sha = _read_members(p, names, source, f"{key}.members")
+        params, sha, prior_weight = _read_members(p, names, source, f"{key}.members")
         origin = {"members": str(p), "members_sha256": sha}
     else:
         spec = block["sample"]
@@ -133,9 +137,11 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         hi = np.array([r[1] for r in ranges])
         rng = np.random.Generator(np.random.PCG64(seed))
         params = lo + (hi - lo) * rng.random((count, len(names)))
+        prior_weight = None
         origin = {"sampler": "uniform", "generator": "numpy PCG64", "seed": seed,
                   "ranges": {n: list(r) for n, r in zip(names, ranges, strict=True)}}
-    return EnsembleSpec(index=index, name=name, kind=kind, parameters=params, origin=origin)
+    return EnsembleSpec(index=index, name=name, kind=kind, parameters=params, origin=origin,
+                        prior_weight=prior_weight)
 
 
 def _floats(values: list) -> list[float]:
@@ -149,7 +155,13 @@ def _floats(values: list) -> list[float]:
     return out
 
 
-def _read_members(path: Path, names: tuple[str, ...], source: str, key: str) -> tuple[np.ndarray, str]:
+#: Optional column of a members CSV: each member's prior weight (>= 0, not all 0).
+WEIGHT_COLUMN = "weight"
+
+
+def _read_members(path: Path, names: tuple[str, ...], source: str, key: str
+                  ) -> tuple[np.ndarray, str, np.ndarray | None]:
+    """(parameters (members, names), sha256 of the file, prior weights or None)."""
     import hashlib
 
     def fail(message: str, line: int | None = None) -> ConfigError:
@@ -170,6 +182,8 @@ def _read_members(path: Path, names: tuple[str, ...], source: str, key: str) -> 
     if missing:
         raise fail(f"lacks column(s) {', '.join(missing)}; header has {', '.join(header)}", lines[0][0])
     cols = [header.index(n) for n in names]
+    if WEIGHT_COLUMN in header:
+        cols.append(header.index(WEIGHT_COLUMN))
     rows = []
     for number, line in lines[1:]:
         fields = [f.strip() for f in line.split(",")]
@@ -183,16 +197,31 @@ def _read_members(path: Path, names: tuple[str, ...], source: str, key: str) -> 
         raise fail("no member rows")
     if len(rows) > 10**6:
         raise fail(f"{len(rows)} members; at most 1000000 per ensemble")
-    return np.array(rows), hashlib.sha256(raw).hexdigest()
+    table = np.array(rows)
+    weight = None
+    if WEIGHT_COLUMN in header:
+        weight = table[:, -1]
+        bad = np.flatnonzero(~np.isfinite(weight) | (weight < 0))
+        if bad.size:
+            raise fail(f"column {WEIGHT_COLUMN} needs finite numbers >= 0, got {weight[bad[0]]:g}",
+                       lines[1 + bad[0]][0])
+        if not weight.sum() > 0:
+            raise fail(f"column {WEIGHT_COLUMN} is 0 for every member")
+        table = table[:, :-1]
+    return table, hashlib.sha256(raw).hexdigest(), weight
 
 
 def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, values,
-                  control: StepControl) -> dict[str, np.ndarray]:
+                  control: StepControl, *, response: bool = True, refine: bool = True) -> dict[str, np.ndarray]:
     """Solve members ``start:stop`` over the sweep: 2-D per-star arrays and 1-D summaries.
 
     All valid members of the chunk are solved as one batch through an
     :class:`~stellar_match.eos.EOSStack` (results equal member-by-member
     solves to the last bit), and their maxima are refined together.
+    ``response=False`` skips the tidal and rotational response (k2, Lambda
+    and I are NaN), about twice as fast.  ``refine=False`` takes each
+    maximum from the parabola through the three samples around it instead of
+    fresh solves (for samplers: the refinement passes cost more than the sweep).
 
     Returns
     -------
@@ -233,7 +262,7 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
     member = np.repeat(np.arange(len(members)), n_stars)
     with np.errstate(all="ignore"):
         cols = star_columns(solve_interiors(stack.bind(member), np.concatenate(h_rows),
-                                                             control=control))
+                                            control=control, response=response))
     guesses, widths, analyses = [], [], []
     for k, row in enumerate(rows):
         sl = slice(k * n_stars, (k + 1) * n_stars)
@@ -251,7 +280,10 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
             x = np.log(np.sort(h_rows[k]))
             widths.append(float(np.median(np.diff(x))) if x.size > 1 else 1e-2)
 
-    x_max = _refine_maxima(stack, guesses, widths, control)
+    if refine:
+        x_max = _refine_maxima(stack, guesses, widths, control)
+    else:
+        x_max = _vertex_maxima(guesses, h_rows, {k: cols[k] for k in ("mass", "radius")}, n_stars)
     for k, row in enumerate(rows):
         a = analyses[k]
         if a is None:
@@ -285,6 +317,23 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
             out["status"][row] = 4
         elif np.any(out["star_status"][row] != 0):
             out["status"][row] = 6
+    return out
+
+
+def _vertex_maxima(guesses, h_rows, cols, n_stars) -> dict[int, tuple[float, float, float]]:
+    """Each member's maximum from a parabola in ln h_c through its three samples nearest the vertex."""
+    out = {}
+    for k, x_guess in guesses:
+        x = np.log(h_rows[k])
+        sl = slice(k * n_stars, (k + 1) * n_stars)
+        m, r = units.mass_to_geometric(cols["mass"][sl]), cols["radius"][sl]
+        ok = np.flatnonzero(np.isfinite(m) & np.isfinite(r))
+        if ok.size < 3:
+            continue
+        near = ok[np.argsort(np.abs(x[ok] - x_guess), kind="stable")[:3]]
+        t = x[near] - x_guess
+        out[k] = (float(x_guess), float(np.polyval(np.polyfit(t, m[near], 2), 0.0)),
+                  float(np.polyval(np.polyfit(t, r[near], 2), 0.0)))
     return out
 
 

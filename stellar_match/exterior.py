@@ -148,6 +148,11 @@ def star_columns(interiors) -> dict[str, np.ndarray]:
     ``stable``) in their physical units: Msun, km, g/cm^3, dyn/cm^2, cm/s^2, g cm^2.
     """
     match = match_surface(interiors.mass, interiors.radius, interiors.central_enthalpy)
+    nan = np.full(np.shape(interiors.mass), np.nan)
+
+    def response(values):  # None when the response equations were not solved
+        return nan if values is None else np.asarray(values, dtype=float)
+
     return {
         "central_density": units.density_from_geometric(interiors.central_density),
         "central_energy_density": units.density_from_geometric(interiors.central_energy_density),
@@ -158,9 +163,9 @@ def star_columns(interiors) -> dict[str, np.ndarray]:
         "compactness": match.compactness,
         "surface_redshift": match.surface_redshift,
         "surface_gravity": match.surface_gravity,
-        "love_number_k2": interiors.love_number_k2,
-        "tidal_deformability": interiors.tidal_deformability,
-        "moment_of_inertia": interiors.moment_of_inertia * units.MOMENT_OF_INERTIA_GEOM_TO_CGS,
+        "love_number_k2": response(interiors.love_number_k2),
+        "tidal_deformability": response(interiors.tidal_deformability),
+        "moment_of_inertia": response(interiors.moment_of_inertia) * units.MOMENT_OF_INERTIA_GEOM_TO_CGS,
         "binding_energy": units.mass_from_geometric(interiors.baryon_mass - interiors.mass),
         "error_estimate": np.asarray(interiors.error_estimate, dtype=float),
         "star_status": np.asarray(interiors.status, dtype=np.int8),

@@ -20,7 +20,6 @@ repeated along its curves, so curves stay apart in greyscale and print.
 from __future__ import annotations
 
 import math
-import tomllib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -34,7 +33,15 @@ from matplotlib.text import Text
 from matplotlib.ticker import NullFormatter
 
 from . import exterior, units
-from .errors import ConfigError, InputError
+from .constraints import (
+    BoxMeasurement,
+    Constraints,
+    EllipseMeasurement,
+    MassMeasurement,
+    load_constraints,
+    parse_constraints,
+)
+from .errors import InputError
 from .exports import FORBIDDEN_REGIONS, check_output_path
 from .sequence import EOSSequence
 
@@ -51,148 +58,13 @@ __all__ = [
     "OverlayArtists",
     "palette",
     "overlay_figure",
+    "CredibleBand",
+    "ensemble_band",
+    "bands_from_results",
     "save_figure",
 ]
 
 FIGURE_FORMATS = (".png", ".pdf", ".svg")
-
-
-# --- constraints file -----------------------------------------------------------
-
-@dataclass(frozen=True)
-class MassMeasurement:
-    """A mass measurement M = mass +- sigma (Msun), drawn as a horizontal band."""
-
-    label: str
-    mass: float
-    sigma: float
-    two_sigma: bool = False
-
-
-@dataclass(frozen=True)
-class EllipseMeasurement:
-    """A correlated Gaussian (M, R) measurement, drawn as 1- and 2-sigma ellipses."""
-
-    label: str
-    mass: float
-    radius: float
-    sigma_mass: float
-    sigma_radius: float
-    correlation: float = 0.0
-
-
-@dataclass(frozen=True)
-class BoxMeasurement:
-    """A rectangular (M, R) region, e.g. a quoted range of both."""
-
-    label: str
-    mass_min: float
-    mass_max: float
-    radius_min: float
-    radius_max: float
-
-
-@dataclass
-class Constraints:
-    """The measurements of a constraints file, in file order per kind."""
-
-    title: str = ""
-    mass: list[MassMeasurement] = field(default_factory=list)
-    ellipse: list[EllipseMeasurement] = field(default_factory=list)
-    box: list[BoxMeasurement] = field(default_factory=list)
-
-
-#: Keys of every block: key -> (type, required); types: "label", "positive", "number", "bool".
-_CONSTRAINT_KEYS: dict[str, tuple[type, dict[str, tuple[str, bool]]]] = {
-    "mass": (MassMeasurement, {"label": ("label", True), "mass": ("positive", True),
-                               "sigma": ("positive", True), "two_sigma": ("bool", False)}),
-    "ellipse": (EllipseMeasurement, {"label": ("label", True), "mass": ("positive", True),
-                                     "radius": ("positive", True), "sigma_mass": ("positive", True),
-                                     "sigma_radius": ("positive", True), "correlation": ("number", False)}),
-    "box": (BoxMeasurement, {"label": ("label", True), "mass_min": ("positive", True),
-                             "mass_max": ("positive", True), "radius_min": ("positive", True),
-                             "radius_max": ("positive", True)}),
-}
-
-
-def _value(v, what: str, source: str, key: str):
-    if what == "label":
-        if not isinstance(v, str) or not v.strip():
-            raise ConfigError(f"needs a non-empty string, got {v!r}", source=source, key=key)
-        return v
-    if what == "bool":
-        if not isinstance(v, bool):
-            raise ConfigError(f"needs true or false, got {v!r}", source=source, key=key)
-        return v
-    if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(v):
-        raise ConfigError(f"needs a finite number, got {v!r}", source=source, key=key)
-    if what == "positive" and v <= 0:
-        raise ConfigError(f"needs a positive number, got {v!r}", source=source, key=key)
-    return float(v)
-
-
-def parse_constraints(text: str, *, source: str = "<constraints>") -> Constraints:
-    """Validate constraints TOML text (see :func:`load_constraints`)."""
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"not valid TOML ({exc})", source=source) from None
-    allowed = {"title", *_CONSTRAINT_KEYS}
-    for k in data:
-        if k not in allowed:
-            raise ConfigError(f"unknown key (expected one of: {', '.join(sorted(allowed))})", source=source, key=k)
-    out = Constraints(title=_value(data["title"], "label", source, "title") if "title" in data else "")
-    for kind, (cls, keys) in _CONSTRAINT_KEYS.items():
-        blocks = data.get(kind, [])
-        if not isinstance(blocks, list) or not all(isinstance(b, dict) for b in blocks):
-            raise ConfigError(f"needs [[{kind}]] blocks", source=source, key=kind)
-        for i, block in enumerate(blocks):
-            where = f"{kind}[{i}]"
-            for k in block:
-                if k not in keys:
-                    raise ConfigError(f"unknown key (expected one of: {', '.join(keys)})",
-                                      source=source, key=f"{where}.{k}")
-            values = {}
-            for k, (what, required) in keys.items():
-                if k in block:
-                    values[k] = _value(block[k], what, source, f"{where}.{k}")
-                elif required:
-                    raise ConfigError("missing", source=source, key=f"{where}.{k}")
-            item = cls(**values)
-            _check_measurement(item, source, where)
-            getattr(out, kind).append(item)
-    return out
-
-
-def _check_measurement(item, source: str, where: str) -> None:
-    if isinstance(item, EllipseMeasurement) and not -1.0 < item.correlation < 1.0:
-        raise ConfigError(f"needs -1 < correlation < 1, got {item.correlation:g}",
-                          source=source, key=f"{where}.correlation")
-    if isinstance(item, BoxMeasurement):
-        for q in ("mass", "radius"):
-            if getattr(item, f"{q}_max") <= getattr(item, f"{q}_min"):
-                raise ConfigError(f"{q}_max must exceed {q}_min", source=source, key=f"{where}.{q}_max")
-
-
-def load_constraints(path: str | Path) -> Constraints:
-    """Read a constraints file: measurements to draw over the mass-radius curves.
-
-    Top-level keys: ``title`` (optional string) and arrays of tables
-    ``[[mass]]`` (label, mass, sigma, two_sigma), ``[[ellipse]]`` (label,
-    mass, radius, sigma_mass, sigma_radius, correlation) and ``[[box]]``
-    (label, mass_min, mass_max, radius_min, radius_max); masses in Msun,
-    radii in km.
-
-    Raises
-    ------
-    ConfigError
-        Naming the file and the dotted key (``ellipse[0].correlation``) for
-        unreadable TOML, unknown keys, missing keys, wrong types or values.
-    """
-    from .config import read_text_file
-
-    path = Path(path)
-    return parse_constraints(read_text_file(path, "constraints"), source=str(path))
 
 
 # --- drawing ------------------------------------------------------------------------
@@ -412,14 +284,20 @@ def _draw_constraints(ax, constraints: Constraints, handles: list) -> None:
     hatches = ("//", "\\\\", "xx", "..")
     for i, c in enumerate(constraints.mass):
         hatch = hatches[i % len(hatches)]
+        one, two = _mass_band(c)
         if c.two_sigma:
-            ax.axhspan(c.mass - 2 * c.sigma, c.mass + 2 * c.sigma, facecolor="none", edgecolor=grey,
-                       hatch=hatch, lw=0.0, alpha=0.35, zorder=1)
-        ax.axhspan(c.mass - c.sigma, c.mass + c.sigma, facecolor="none", edgecolor=grey, hatch=hatch,
-                   lw=0.6, zorder=1, gid=f"mass:{c.label}")
+            ax.axhspan(*two, facecolor="none", edgecolor=grey, hatch=hatch, lw=0.0, alpha=0.35, zorder=1)
+        ax.axhspan(*one, facecolor="none", edgecolor=grey, hatch=hatch, lw=0.6, zorder=1, gid=f"mass:{c.label}")
         sig = r" (1$\sigma$; faint: 2$\sigma$)" if c.two_sigma else ""
+        text = (f"{c.mass:g} $\\pm$ {c.sigma:g} M$_\\odot$" if c.samples is None
+                else f"{one[0]:.3g}-{one[1]:.3g} M$_\\odot$ (16-84 % of samples)")
         handles.append(Rectangle((0, 0), 1, 1, facecolor="none", edgecolor=grey, hatch=hatch,
-                                 label=f"{c.label}, {c.mass:g} $\\pm$ {c.sigma:g} M$_\\odot${sig}"))
+                                 label=f"{c.label}, {text}{sig}"))
+    for i, c in enumerate(constraints.mass_radius_samples):
+        pts = c.samples[:: max(1, len(c.samples) // 1500)]  # enough points to show the shape
+        ax.scatter(pts[:, 1], pts[:, 0], s=2, color=("0.15", "0.45")[i % 2], alpha=0.25, lw=0, zorder=2,
+                   gid=f"mass_radius_samples:{c.label}")
+        handles.append(Line2D([], [], color="0.15", marker=".", ls="none", label=f"{c.label} (samples)"))
     for i, c in enumerate(constraints.ellipse):
         ls = ("-", "--", ":", "-.")[i % 4]
         cov = np.array([[c.sigma_radius**2, c.correlation * c.sigma_radius * c.sigma_mass],
@@ -440,6 +318,106 @@ def _draw_constraints(ax, constraints: Constraints, handles: list) -> None:
                                  label=c.label))
 
 
+def _mass_band(c: MassMeasurement) -> tuple[tuple[float, float], tuple[float, float]]:
+    """1- and 2-sigma mass ranges: mean +- sigma, or the samples' 16-84 % and 2.3-97.7 % ranges."""
+    if c.samples is None:
+        return (c.mass - c.sigma, c.mass + c.sigma), (c.mass - 2 * c.sigma, c.mass + 2 * c.sigma)
+    q = np.quantile(c.samples, [0.16, 0.84, 0.023, 0.977])
+    return (float(q[0]), float(q[1])), (float(q[2]), float(q[3]))
+
+
+@dataclass(frozen=True)
+class CredibleBand:
+    """Quantiles of R(M) across an ensemble, for drawing.
+
+    Attributes
+    ----------
+    label : str
+        Legend text, e.g. ``"prior-2026 posterior"``.
+    mass : ndarray, shape (masses,)
+        Msun.
+    radius : ndarray, shape (5, masses)
+        km, at the levels 5, 16, 50, 84 and 95 % (:data:`stellar_match.scoring.BAND_LEVELS`).
+    which : {"posterior", "prior"}
+        Posterior bands are filled, prior bands outlined.
+    support : ndarray, shape (masses,), optional
+        Weight of the members whose stable branch reaches each mass; the band
+        is drawn where it is at least :data:`BAND_MIN_SUPPORT`.
+    """
+
+    label: str
+    mass: np.ndarray
+    radius: np.ndarray
+    which: str = "posterior"
+    support: np.ndarray | None = None
+
+
+#: Least weight of members reaching a mass for the band to be drawn there: above the heaviest
+#: members' maxima the quantiles describe a handful of members (our choice, stated in README).
+BAND_MIN_SUPPORT = 0.1
+
+
+def ensemble_band(run, name: str, *, masses=None, mass_floor: float = 0.5) -> CredibleBand:
+    """The prior band of R(M) of an ensemble of a run file (its members weighted by their prior)."""
+    from .scoring import BAND_MASS_STEP, ensemble_bands
+
+    summary = run.ensembles[name]
+    if masses is None:
+        ok = np.asarray(summary["status"]) == 0
+        top = np.nanmax(np.where(ok, summary["max_mass"], np.nan)) if ok.any() else np.nan
+        masses = (np.arange(mass_floor, top + 1e-9, BAND_MASS_STEP) if np.isfinite(top) and top > mass_floor
+                  else np.array([mass_floor]))
+    b = ensemble_bands(run, name, band_masses=masses, mass_floor=mass_floor)
+    return CredibleBand(f"{name}, prior", np.asarray(masses, dtype=float), b["radius"], "prior", b["support"])
+
+
+def bands_from_results(path, names: list[str] | None = None) -> list[CredibleBand]:
+    """Prior and posterior bands of R(M) of the ensembles of a likelihood results file."""
+    from .scoring import read_scores
+
+    res = read_scores(path)
+    out = []
+    for name, e in res["ensemble"].items():
+        if names and name not in names:
+            continue
+        out.append(CredibleBand(f"{name}, prior", e["band_mass"], e["band_radius_prior"], "prior",
+                                e["band_support_prior"]))
+        out.append(CredibleBand(f"{name}, posterior", e["band_mass"], e["band_radius"], "posterior",
+                                e["band_support"]))
+    return out
+
+
+#: Band colours: Okabe & Ito (2008, "Color Universal Design") blue and vermillion, readable by colour-blind readers.
+_BAND_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7")
+
+
+def _draw_bands(ax, bands: list[CredibleBand], colours=_BAND_COLOURS) -> list:
+    """Posterior: 5-95 % light and 16-84 % darker fills with the median; prior: the same as outlines."""
+    handles = []
+    ensembles = list(dict.fromkeys(b.label.rsplit(", ", 1)[0] for b in bands))
+    for b in bands:
+        colour = colours[ensembles.index(b.label.rsplit(", ", 1)[0]) % len(colours)]
+        r = np.asarray(b.radius, dtype=float)
+        ok = np.all(np.isfinite(r), axis=0)
+        if b.support is not None:
+            ok &= np.asarray(b.support) >= BAND_MIN_SUPPORT
+        m = np.asarray(b.mass, dtype=float)[ok]
+        r = r[:, ok]
+        if not m.size:
+            continue
+        if b.which == "posterior":
+            ax.fill_betweenx(m, r[0], r[4], color=colour, alpha=0.18, lw=0, zorder=2, gid=f"band:{b.label}:90")
+            ax.fill_betweenx(m, r[1], r[3], color=colour, alpha=0.35, lw=0, zorder=2, gid=f"band:{b.label}:68")
+            ax.plot(r[2], m, color=colour, lw=1.2, zorder=2, gid=f"band:{b.label}:median")
+            handles.append(Rectangle((0, 0), 1, 1, facecolor=colour, alpha=0.35,
+                                     label=f"{b.label}: 68 % and 90 % bands"))
+        else:
+            for k, ls in ((0, "--"), (4, "--"), (1, ":"), (3, ":")):
+                ax.plot(r[k], m, color=colour, lw=1.0, ls=ls, zorder=2, gid=f"band:{b.label}:{k}")
+            handles.append(Line2D([], [], color=colour, lw=1.0, ls="--", label=f"{b.label}: 90 % (dashed), "
+                                  "68 % (dotted)"))
+    return handles
+
 
 def _largest_finite(values, default: float) -> float:
     """The largest finite value, or ``default`` when there is none (every star NaN: none solved)."""
@@ -448,9 +426,15 @@ def _largest_finite(values, default: float) -> float:
     return float(values.max()) if values.size else default
 
 
-def _mass_radius_limits(sequences, constraints: Constraints | None) -> tuple[tuple, tuple]:
+def _mass_radius_limits(sequences, constraints: Constraints | None, bands=()) -> tuple[tuple, tuple]:
     m_top = max([_largest_finite(s["mass"], 0.0) for _, s in sequences] + [0.5])
     r_lo, r_hi = [], []
+    for b in bands:
+        ok = np.isfinite(b.radius[0]) & np.isfinite(b.radius[-1])
+        if ok.any():
+            m_top = max(m_top, float(b.mass[ok].max()))
+            r_lo.append(float(np.min(b.radius[0][ok])))
+            r_hi.append(float(np.max(b.radius[-1][ok])))
     for _, s in sequences:
         # stable stars above 0.3 M_max: the light, huge stars would squeeze the interesting part
         big = s.stable & (np.asarray(s["mass"]) >= 0.3 * _largest_finite(s["mass"], np.inf))
@@ -460,7 +444,11 @@ def _mass_radius_limits(sequences, constraints: Constraints | None) -> tuple[tup
         r_hi.append(float(np.nanmax(np.asarray(s["radius"])[big])))
     if constraints is not None:
         for c in constraints.mass:
-            m_top = max(m_top, c.mass + (2 if c.two_sigma else 1) * c.sigma)
+            m_top = max(m_top, _mass_band(c)[1 if c.two_sigma else 0][1])
+        for c in constraints.mass_radius_samples:
+            m_top = max(m_top, float(np.quantile(c.samples[:, 0], 0.99)))
+            r_lo.append(float(np.quantile(c.samples[:, 1], 0.01)))
+            r_hi.append(float(np.quantile(c.samples[:, 1], 0.99)))
         for e in constraints.ellipse:
             m_top = max(m_top, e.mass + 2 * e.sigma_mass)
             r_lo.append(e.radius - 2 * e.sigma_radius)
@@ -538,6 +526,7 @@ def overlay_figure(
     ax=None,
     legend: str | None = "auto",
     central: str = "auto",
+    bands: list[CredibleBand] | None = None,
 ):
     """Mass-radius curves of several EOS over forbidden regions and measurements.
 
@@ -570,6 +559,10 @@ def overlay_figure(
         some sequence has one rho_c for all its stars (the uniform-density
         EOS, swept in central pressure), where M(rho_c) would be a vertical
         line, else rho_c.
+    bands : list of CredibleBand, optional
+        Credible bands of R(M) of ensembles (prior and/or posterior), from
+        :func:`ensemble_band` or :func:`bands_from_results`, drawn in the
+        mass-radius axes in the colours after the EOS colours.
 
     Returns
     -------
@@ -591,8 +584,9 @@ def overlay_figure(
     star is a larger marker with a black edge.  The M(p_c) panel has no
     maximum-mass marker (the run file stores rho_c of that star, not p_c).
     """
-    if not sequences:
-        raise InputError("no EOS to plot")
+    bands = list(bands or [])
+    if not sequences and not bands:
+        raise InputError("no EOS or ensemble to plot")
     if legend not in ("auto", "figure", "axes", None):
         raise ValueError(f"legend must be 'auto', 'figure', 'axes' or None, got {legend!r}")
     tidal = any("tidal_deformability" in s.columns for _, s in sequences)
@@ -602,13 +596,15 @@ def overlay_figure(
     styles = [(label, s, c, _MARKERS[i % len(_MARKERS)], _MARK_SPACING * i / n)
               for i, ((label, s), c) in enumerate(zip(sequences, palette(n), strict=True))]
 
-    eos_handles = []
+    eos_handles, band_handles = [], []
     if "mr" in axd:
         ax_mr = axd["mr"]
-        xlim, ylim = _mass_radius_limits(sequences, constraints)
+        xlim, ylim = _mass_radius_limits(sequences, constraints, bands)
         art.regions.update(_forbidden(ax_mr, xlim[1], ylim[1]))
         eos_handles = _draw_all(ax_mr, styles, "radius", "mass", art)
-    art.handles = list(eos_handles)
+        # the ensembles' colours follow the EOS colours, so a band never shares one with a curve
+        band_handles = _draw_bands(ax_mr, bands, colours=palette(n + len(bands))[n:] or OKABE_ITO)
+    art.handles = eos_handles + band_handles
     art.handles += [Line2D([], [], color=_KEY_COLOR, lw=1.9, label="stable branch"),
                     Line2D([], [], color=_KEY_COLOR, lw=1.3, ls=(0, (4, 2.5)), marker="o", ms=4.5,
                            mfc="white", mec=_KEY_COLOR, label="unstable branch (open markers)"),
@@ -616,9 +612,9 @@ def overlay_figure(
     art.handles += _region_handles()
     if "mr" in axd:
         if constraints is not None:
-            before = set(ax_mr.patches)
+            before = set(ax_mr.patches) | set(ax_mr.collections)
             _draw_constraints(ax_mr, constraints, art.handles)
-            art.measurements = [p for p in ax_mr.patches if p not in before]
+            art.measurements = [p for p in [*ax_mr.patches, *ax_mr.collections] if p not in before]
         ax_mr.set_xlim(xlim)
         ax_mr.set_ylim(ylim)
         ax_mr.set_xlabel(_RADIUS_LABEL)
@@ -630,7 +626,7 @@ def overlay_figure(
         _redshift_panel(axd["z"], styles, art)
     if "lam" in axd:
         _tidal_panel(axd["lam"], styles, art)
-    if not eos_handles:  # no mass-radius axes: the legend names the EOS all the same
+    if sequences and not eos_handles:  # no mass-radius axes: the legend names the EOS all the same
         art.handles[:0] = [Line2D([], [], color=c, lw=1.9, marker=mk, ms=5.5, mec=c, label=label)
                            for label, _, c, mk, _ in styles]
 

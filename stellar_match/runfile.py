@@ -48,6 +48,7 @@ from .schema import (
     FORMAT_VERSION,
     MEMBER_STATUS,
     MEMBER_SUMMARIES,
+    PRIOR_WEIGHT,
     STAR_DATASETS,
     STAR_STATUS,
     TARGET_DATASETS,
@@ -239,6 +240,10 @@ class RunFileWriter:
         members = g.create_group("members")
         for j, name in enumerate(spec.parameter_names):
             members.create_dataset(name, data=spec.parameters[:, j])
+        if getattr(spec, "prior_weight", None) is not None:
+            d = g.create_dataset(PRIOR_WEIGHT, data=np.asarray(spec.prior_weight, dtype=float))
+            d.attrs["unit"] = "1"
+            d.attrs["description"] = "prior weight of each member (the members CSV's weight column)"
         ax = g.create_dataset("sweep_values", data=axis.values)
         ax.attrs["unit"] = axis.unit
         ax.attrs["quantity"] = axis.quantity

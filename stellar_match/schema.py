@@ -21,7 +21,7 @@ import numpy as np
 __all__ = [
     "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "STAR_DATASETS", "STAR_STATUS", "TARGET_DATASETS",
     "BINARY_DATASETS", "SUMMARY_ATTRIBUTES", "NOT_SOLVED", "MEMBER_SUMMARIES", "MEMBER_STATUS", "dataset_dtype",
-    "DATASET_SINCE_VERSION", "MAX_NAME_LENGTH", "group_name_problem",
+    "DATASET_SINCE_VERSION", "MAX_NAME_LENGTH", "group_name_problem", "PRIOR_WEIGHT",
 ]
 
 FORMAT = "stellar_match.run"
@@ -94,6 +94,9 @@ MEMBER_SUMMARIES: dict[str, str] = {
     "causal": "1",
     "status": "1",
 }
+#: Optional 1-D dataset of an ensemble: each member's prior weight (from a ``weight`` column of the
+#: members CSV; absent: every member weighs the same).
+PRIOR_WEIGHT = "prior_weight"
 #: Member status codes (dataset ``status`` of an ensemble) and their meaning
 #: (attribute ``status_meaning``).
 MEMBER_STATUS: dict[int, str] = {
