@@ -8,9 +8,13 @@ The Python API mirrors the command line::
     seq.summary["max_mass"], seq["radius"]
     path = sm.run_config("runs/example_sweep.toml", "runs/example.h5")
     run = sm.read_run(path)
+    scores = sm.score_runs([path], sm.load_constraints("runs/example_constraints.toml"))
+    like = sm.EOSLikelihood("piecewise_polytrope", scores.constraints)   # ln L(parameters) for samplers
 
 Data flow: config -> eos -> structure -> exterior -> sequence -> runfile
-(-> plots / exports); :mod:`stellar_match.cli` is the only module that prints.
+(-> plots / exports); beside it, constraints -> likelihood -> scoring (run
+files in, results files out) and inference (parameters in, ln L out);
+:mod:`stellar_match.cli` is the only module that prints.
 """
 
 from importlib.metadata import PackageNotFoundError, version
@@ -22,6 +26,7 @@ except PackageNotFoundError:  # running from a source tree without install
 
 from . import exterior, units
 from .config import load_config, parse_config
+from .constraints import Constraints, load_constraints, parse_constraints
 from .eos import (
     EquationOfState,
     Incompressible,
@@ -33,13 +38,15 @@ from .eos import (
     read_piecewise_polytrope,
 )
 from .errors import ConfigError, InputError, RunFileError, TableError
+from .inference import EOSLikelihood
 from .runfile import RunFile, read_run
 from .schema import STAR_DATASETS
+from .scoring import Scores, read_scores, score_runs, write_scores
 from .sequence import EOSSequence, analyse_sequence
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 from .sweep import run_config, solve_stars, sweep_eos
 
-_LAZY = ("plots", "exports", "scheduling", "ensemble")
+_LAZY = ("plots", "exports", "scheduling", "ensemble", "likelihood", "scoring", "inference", "constraints")
 
 
 def __getattr__(name: str):
@@ -57,6 +64,14 @@ __all__ = [
     "units",
     "load_config",
     "parse_config",
+    "Constraints",
+    "load_constraints",
+    "parse_constraints",
+    "EOSLikelihood",
+    "Scores",
+    "score_runs",
+    "write_scores",
+    "read_scores",
     "EquationOfState",
     "Incompressible",
     "PiecewisePolytrope",

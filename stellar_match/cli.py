@@ -480,8 +480,8 @@ def _likelihood_report(scores) -> str:
     lines = [f"measurements with a likelihood ({len(scores.labels)}): {', '.join(scores.labels)}; "
              f"mass prior uniform on the stable branch above {scores.constraints.mass_floor:g} Msun"]
     if scores.candidates:
-        width = max(len(n) for n in scores.candidates) + 2
-        lines.append(f"{'EOS':<{width}}{'ln L':>10}  {'Bayes factor':>12}  note")
+        width = max(len(n) for n in [*scores.candidates, "candidate"]) + 2
+        lines.append(f"{'candidate':<{width}}{'ln L':>10}  {'Bayes factor':>12}  note")
         for c in sorted(scores.candidates.values(), key=lambda c: -c.log_likelihood
                         if np.isfinite(c.log_likelihood) else np.inf):
             note = "best" if c.log_bayes_factor == 0 else ""

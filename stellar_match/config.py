@@ -165,12 +165,17 @@ class SolverOptions:
         Largest relative error in M, R and M_b a star may carry with status
         0; a star the solver cannot bring below it within its step budget is
         NaN with a non-zero ``star_status``.
+    ensemble_maxima : {"refined", "vertex"}
+        How ensemble members' maxima are found: by fresh solves (default), or
+        from the parabola through the three samples around the maximum
+        (faster for large ensembles; see README).
     """
 
     step_scale: float = 1.0
     chunk_size: int = 2048
     member_chunk_size: int = 128
     tolerance: float = DEFAULT_TOLERANCE
+    ensemble_maxima: str = "refined"
 
     def control(self) -> StepControl:
         """The solver's step control for these options."""
@@ -394,7 +399,8 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
     solver = SolverOptions()
     if "solver" in data:
         st = _table(data["solver"], source, "solver")
-        _no_unknown(st, {"step_scale", "chunk_size", "member_chunk_size", "tolerance"}, source, "solver")
+        _no_unknown(st, {"step_scale", "chunk_size", "member_chunk_size", "tolerance", "ensemble_maxima"}, source,
+                    "solver")
         scale = _number(st.get("step_scale", 1.0), source, "solver.step_scale", positive=True)
         if scale > 4:
             raise _fail(source, "solver.step_scale", f"{scale:g} is too coarse to trust (use <= 4)")
@@ -414,7 +420,10 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
         # "within tolerance" star is too rough for any use of the sequence (common practice)
         if not 1e-9 <= tolerance <= 1e-3:
             raise _fail(source, "solver.tolerance", f"{tolerance:g} is outside 1e-9 to 1e-3")
-        solver = SolverOptions(step_scale=scale, tolerance=tolerance, **sizes)
+        maxima = st.get("ensemble_maxima", "refined")
+        if maxima not in ("refined", "vertex"):
+            raise _fail(source, "solver.ensemble_maxima", f'needs "refined" or "vertex", got {maxima!r}')
+        solver = SolverOptions(step_scale=scale, tolerance=tolerance, ensemble_maxima=maxima, **sizes)
 
     blocks = data.get("eos", [])
     ens_blocks = data.get("ensemble", [])

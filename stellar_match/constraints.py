@@ -389,12 +389,14 @@ def parse_constraints(text: str, *, source: str = "<constraints>", base_dir: str
     for kind in _kinds_in_file_order(text, data):
         out.order.append((kind, positions[kind]))
         positions[kind] += 1
-    labels = [m.label for m in out.scored()]
+    seen: dict[str, str] = {}
     for kind, i in out.order:
         m = getattr(out, kind)[i]
-        if m.likelihood and labels.count(m.label) > 1:
-            raise ConfigError(f"label {m.label!r} is used by more than one measurement with a likelihood "
-                              "(results are stored by label)", source=source, key=f"{kind}[{i}].label")
+        if m.likelihood and m.label in seen:
+            raise ConfigError(f"label {m.label!r} is already used by {seen[m.label]} (results are stored by "
+                              "label)", source=source, key=f"{kind}[{i}].label")
+        if m.likelihood:
+            seen[m.label] = f"{kind}[{i}]"
     return out
 
 

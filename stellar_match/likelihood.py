@@ -8,7 +8,8 @@ differences; each stable segment that ends in a maximum gets a last piece
 from its heaviest stable star to the maximum (the refined maximum of the
 sweep, or the vertex of a parabola through the samples around it for other
 maxima), on which M(R) is the parabola M_top - a (R - R_top)^2 that a
-turning point traces.  :func:`log_likelihoods` integrates each
+turning point traces; a segment that starts at a minimum (a twin-star
+branch) gets a first piece from that minimum the same way.  :func:`log_likelihoods` integrates each
 measurement's density along those pieces with Gauss-Legendre nodes, all
 sequences at once.
 
@@ -183,15 +184,31 @@ def _hermite(f0, f1, d0, d1, dx) -> np.ndarray:
 
 
 def _solve_cubic(c: np.ndarray, target: np.ndarray, lo: np.ndarray, hi: np.ndarray, iterations: int = 48):
-    """s in [lo, hi] with cubic(c, s) = target, by bisection (the cubic is monotone on stable pieces)."""
+    """s in [lo, hi] with cubic(c, s) = target (the cubic is monotone on stable pieces).
+
+    Newton's method from the linear guess, kept inside the bracket; the few
+    that do not converge in 8 steps are finished by bisection.
+    """
     lo, hi = lo.astype(float).copy(), hi.astype(float).copy()
-    rising = _poly(c, hi) >= _poly(c, lo)
-    for _ in range(iterations):
-        mid = 0.5 * (lo + hi)
-        below = (_poly(c, mid) < target) == rising
-        lo = np.where(below, mid, lo)
-        hi = np.where(below, hi, mid)
-    return 0.5 * (lo + hi)
+    f_lo, f_hi = _poly(c, lo) - target, _poly(c, hi) - target
+    with np.errstate(invalid="ignore", divide="ignore"):
+        s = np.clip(lo + (hi - lo) * f_lo / (f_lo - f_hi), lo, hi)
+        s = np.where(np.isfinite(s), s, 0.5 * (lo + hi))
+        for _ in range(8):
+            step = (_poly(c, s) - target) / _dpoly(c, s)
+            s = np.clip(s - np.where(np.isfinite(step), step, 0.0), lo, hi)
+    scale = np.maximum(np.abs(target), 1.0)
+    slow = np.flatnonzero(~(np.abs(_poly(c, s) - target) <= 1e-13 * scale))
+    if slow.size:
+        cs, ts, a, b = c[slow], target[slow], lo[slow], hi[slow]
+        rising = _poly(cs, b) >= _poly(cs, a)
+        for _ in range(iterations):
+            mid = 0.5 * (a + b)
+            below = (_poly(cs, mid) < ts) == rising
+            a = np.where(below, mid, a)
+            b = np.where(below, b, mid)
+        s[slow] = 0.5 * (a + b)
+    return s
 
 
 def stable_branches(central_pressure, mass, radius, stable, *, tidal_deformability=None, max_mass=None,
@@ -274,13 +291,29 @@ def stable_branches(central_pressure, mass, radius, stable, *, tidal_deformabili
     top_l_c = np.stack([loglam[ti, tj], slope * (r_top - r[ti, tj]), np.zeros_like(dM), np.zeros_like(dM)],
                        axis=-1)
 
-    owner = np.concatenate([pi, ti])
-    position = np.concatenate([pj.astype(float), tj + 0.5])
+    # bottoms: a stable star after an unstable one starts a segment at a minimum (a twin branch)
+    prv = np.zeros_like(st)
+    prv[:, 1:] = good[:, :-1] & ~st[:, :-1]
+    bi, bj = np.nonzero(st & prv)
+    m_bot, r_bot = _vertex(x, m, r, bi, bj, minimum=True)
+    keep_b = np.isfinite(m_bot) & (m_bot < m[bi, bj])
+    bi, bj, m_bot, r_bot = bi[keep_b], bj[keep_b], m_bot[keep_b], r_bot[keep_b]
+    dB = m[bi, bj] - m_bot  # M(s) = M_bot + dB s^2 with R linear in s: the parabola M(R) of a turning point
+    zero = np.zeros_like(dB)
+    bot_m_c = np.stack([m_bot, zero, dB, zero], axis=-1)
+    bot_r_c = np.stack([r_bot, r[bi, bj] - r_bot, zero, zero], axis=-1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope_b = dl[bi, bj] / dr[bi, bj]
+    bot_l_c = np.stack([loglam[bi, bj] - slope_b * (r[bi, bj] - r_bot), slope_b * (r[bi, bj] - r_bot), zero, zero],
+                       axis=-1)
+
+    owner = np.concatenate([pi, ti, bi])
+    position = np.concatenate([pj.astype(float), tj + 0.5, bj - 0.5])
     sort = np.lexsort((position, owner))
     owner = owner[sort]
-    c_m = np.concatenate([pieces_m, top_m_c])[sort]
-    c_r = np.concatenate([pieces_r, top_r_c])[sort]
-    c_l = np.concatenate([pieces_l, top_l_c])[sort]
+    c_m = np.concatenate([pieces_m, top_m_c, bot_m_c])[sort]
+    c_r = np.concatenate([pieces_r, top_r_c, bot_r_c])[sort]
+    c_l = np.concatenate([pieces_l, top_l_c, bot_l_c])[sort]
 
     # the mass floor
     m0, m1 = _poly(c_m, 0.0), _poly(c_m, 1.0)
@@ -315,8 +348,11 @@ def stable_branches(central_pressure, mass, radius, stable, *, tidal_deformabili
                           has_lambda=has_lambda & (np.bincount(owner, minlength=n) > 0))
 
 
-def _vertex(x, m, r, ti, tj):
-    """Vertex (M, R) of the parabola in x through the stars around each top (NaN where there is none)."""
+def _vertex(x, m, r, ti, tj, minimum: bool = False):
+    """Vertex (M, R) of the parabola in x through the stars around each top (or bottom), NaN where none.
+
+    A top lies between star j and the next one, a bottom between the previous one and j.
+    """
     n_stars = x.shape[1]
     ok = (tj >= 1) & (tj + 1 < n_stars)
     j0, j1, j2 = np.clip(tj - 1, 0, n_stars - 1), tj, np.clip(tj + 1, 0, n_stars - 1)
@@ -331,10 +367,18 @@ def _vertex(x, m, r, ti, tj):
             return f1, b, a
 
         c0, b, a = quad(m)
-        t = np.clip(-b / (2 * a), 0.0, t2)
-        m_top = np.where(ok & (a < 0), c0 + b * t + a * t**2, np.nan)
+        t = np.clip(-b / (2 * a), t0, 0.0) if minimum else np.clip(-b / (2 * a), 0.0, t2)
+        curved = (a > 0) if minimum else (a < 0)
+        m_top = np.where(ok & curved, c0 + b * t + a * t**2, np.nan)
         r0, rb, ra = quad(r)
-        r_top = np.where(ok & (a < 0), r0 + rb * t + ra * t**2, np.nan)
+        r_top = np.where(ok & curved, r0 + rb * t + ra * t**2, np.nan)
+        # no parabola bending the right way (a kink, e.g. at a phase transition): the neighbouring
+        # star beyond the turning point bounds it; take that star
+        jn = j0 if minimum else j2
+        beyond = (m[ti, jn] < c0) if minimum else (m[ti, jn] > c0)
+        use = ~(ok & curved) & (jn != j1) & beyond
+        m_top = np.where(use, m[ti, jn], m_top)
+        r_top = np.where(use, r[ti, jn], r_top)
     return m_top, r_top
 
 
@@ -558,7 +602,7 @@ def _along_branch(branches: StableBranches, logpdf_of_star) -> np.ndarray:
     return _group_logsumexp(logpdf_of_star(m, r) + log_w, branches.owner[piece], branches.n)
 
 
-def values_at_masses(branches: StableBranches, masses: np.ndarray, which: str = "radius", *,
+def values_at_masses(branches: StableBranches, masses: np.ndarray, which="radius", *,
                      owners: np.ndarray | None = None):
     """Every stable star at given masses: (owner, query index, value) triples.
 
@@ -566,8 +610,8 @@ def values_at_masses(branches: StableBranches, masses: np.ndarray, which: str = 
     ----------
     masses : ndarray, shape (q,) or (n, q)
         Query masses (Msun), the same for every sequence or one row each.
-    which : {"radius", "log_lambda"}
-        The value wanted.
+    which : {"radius", "log_lambda"} or a tuple of them
+        The value(s) wanted (a tuple gives a tuple of value arrays, from one root-finding).
 
     Returns
     -------
@@ -579,34 +623,88 @@ def values_at_masses(branches: StableBranches, masses: np.ndarray, which: str = 
     c_m = branches.mass
     m0, m1 = _poly(c_m, 0.0), _poly(c_m, 1.0)
     lo, hi = np.minimum(m0, m1), np.maximum(m0, m1)
-    rows = masses[branches.owner] if masses.ndim == 2 else np.broadcast_to(masses, (branches.owner.size,
-                                                                                    masses.size))
     # half-open [lo, hi) so that a mass at the joint of two pieces counts once; the segment's top is closed
     last = np.ones(branches.owner.size, bool)
     last[:-1] = branches.owner[1:] != branches.owner[:-1]
-    hit = (rows >= lo[:, None]) & ((rows < hi[:, None]) | ((rows == hi[:, None]) & last[:, None]))
-    piece, query = np.nonzero(hit)
-    target = rows[piece, query]
+    if masses.ndim == 2:
+        rows = masses[branches.owner]
+        hit = (rows >= lo[:, None]) & ((rows < hi[:, None]) | ((rows == hi[:, None]) & last[:, None]))
+        piece, query = np.nonzero(hit)
+        target = rows[piece, query]
+    else:  # sorted queries: each piece's range of query indices by binary search, no pieces x queries array
+        order = np.argsort(masses, kind="stable")
+        sorted_m = masses[order]
+        first = np.searchsorted(sorted_m, lo, side="left")
+        stop = np.where(last, np.searchsorted(sorted_m, hi, side="right"), np.searchsorted(sorted_m, hi, side="left"))
+        count = np.maximum(stop - first, 0)
+        piece = np.repeat(np.arange(lo.size), count)
+        offset = np.arange(piece.size) - np.repeat(np.cumsum(count) - count, count)
+        query = order[first[piece] + offset]
+        target = masses[query]
     s = _solve_cubic(c_m[piece], target, np.zeros(piece.size), np.ones(piece.size))
-    coeff = branches.radius if which == "radius" else branches.log_lambda
-    return branches.owner[piece], query, _poly(coeff[piece], s)
+    coeffs = {"radius": branches.radius, "log_lambda": branches.log_lambda}
+    if isinstance(which, tuple):
+        return branches.owner[piece], query, tuple(_poly(coeffs[w][piece], s) for w in which)
+    return branches.owner[piece], query, _poly(coeffs[which][piece], s)
+
+
+def _q_where(mc: float, mass: np.ndarray, heavier: bool, q_min: float) -> np.ndarray:
+    """q in [q_min, 1] where the heavier (m1) or lighter (m2) component has the given mass (bisection).
+
+    m1 = Mc (1+q)^(1/5) / q^(3/5) falls and m2 = q m1 rises with q; the result is clipped to [q_min, 1].
+    """
+    lo, hi = np.full(mass.shape, q_min), np.ones(mass.shape)
+
+    def component(q):
+        m1 = mc * (1.0 + q) ** 0.2 / q**0.6
+        return m1 if heavier else q * m1
+
+    for _ in range(60):
+        mid = 0.5 * (lo + hi)
+        beyond = (component(mid) > mass) if heavier else (component(mid) < mass)
+        lo, hi = np.where(beyond, mid, lo), np.where(beyond, hi, mid)
+    return 0.5 * (lo + hi)
 
 
 def _binary(branches: StableBranches, meas: BinaryMeasurement, dist) -> np.ndarray:
+    """ln L of a binary measurement (see the module docstring), nodes per sequence.
+
+    The integrand vanishes where a component leaves the stable branch; the
+    nodes of each sequence cover only the q where both components lie
+    within its branch's mass range, so the quadrature never straddles that
+    step (the normalisation stays 1 / (1 - q_min)).
+    """
+    n = branches.n
+    c_m = branches.mass
+    m0, m1_ = _poly(c_m, 0.0), _poly(c_m, 1.0)
+    lowest = np.full(n, np.inf)
+    highest = np.full(n, -np.inf)
+    np.minimum.at(lowest, branches.owner, np.minimum(m0, m1_))
+    np.maximum.at(highest, branches.owner, np.maximum(m0, m1_))
+    mc, q_min = meas.chirp_mass, meas.q_min
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        q_lo = np.maximum(_q_where(mc, np.where(np.isfinite(highest), highest, 0.0), True, q_min),
+                          _q_where(mc, np.where(np.isfinite(lowest), lowest, np.inf), False, q_min))
+    q_lo = np.where(np.isfinite(lowest), q_lo, 1.0)
     g, w = np.polynomial.legendre.leggauss(Q_NODES)
-    edges = np.linspace(meas.q_min, 1.0, Q_PANELS + 1)
-    half = 0.5 * np.diff(edges)[:, None]
-    q = ((0.5 * (edges[1:] + edges[:-1]))[:, None] + half * g[None, :]).ravel()
-    wq = (half * w[None, :]).ravel()
-    if meas.q_min == 1.0:  # equal masses only: the density at q = 1 (the limit of the average)
-        q, wq = np.array([1.0]), np.array([1.0])
-    m1 = meas.chirp_mass * (1.0 + q) ** 0.2 / q**0.6
+    t = np.linspace(0.0, 1.0, Q_PANELS + 1)
+    a, b = t[:-1], t[1:]
+    unit = ((0.5 * (a + b))[:, None] + 0.5 * (b - a)[:, None] * g[None, :]).ravel()  # nodes on [0, 1]
+    unit_w = (0.5 * (b - a)[:, None] * w[None, :]).ravel()
+    if q_min == 1.0:  # equal masses only: the density at q = 1
+        q = np.ones((n, 1))
+        wq = np.ones((n, 1))
+    else:
+        span = (1.0 - q_lo)[:, None]
+        q = q_lo[:, None] + span * unit[None, :]
+        wq = span * unit_w[None, :] / (1.0 - q_min)
+    nq = q.shape[1]
+    m1 = mc * (1.0 + q) ** 0.2 / q**0.6
     m2 = q * m1
-    nq = q.size
-    owner, query, loglam = values_at_masses(branches, np.concatenate([m1, m2]), "log_lambda")
+    owner, query, loglam = values_at_masses(branches, np.concatenate([m1, m2], axis=1), "log_lambda")
     # up to K stars per (sequence, component mass): twin branches give two
     K = 3
-    slots = np.full((branches.n, 2 * nq, K), np.nan)
+    slots = np.full((n, 2 * nq, K), np.nan)
     flat = owner * (2 * nq) + query
     order = np.argsort(flat, kind="stable")
     flat_sorted = flat[order]
@@ -616,21 +714,20 @@ def _binary(branches: StableBranches, meas: BinaryMeasurement, dist) -> np.ndarr
     slots.reshape(-1, K)[flat_sorted[ok], rank[ok]] = loglam[order][ok]
     lam1 = np.exp(slots[:, :nq, :, None])  # (n, q, K, 1)
     lam2 = np.exp(slots[:, nq:, None, :])  # (n, q, 1, K)
-    lt = 16.0 / 13.0 * ((m1 + 12 * m2)[None, :, None, None] * m1[None, :, None, None] ** 4 * lam1
-                        + (m2 + 12 * m1)[None, :, None, None] * m2[None, :, None, None] ** 4 * lam2) \
-        / ((m1 + m2)[None, :, None, None] ** 5)
+    a1, a2 = m1[:, :, None, None], m2[:, :, None, None]
+    lt = 16.0 / 13.0 * ((a1 + 12 * a2) * a1**4 * lam1 + (a2 + 12 * a1) * a2**4 * lam2) / (a1 + a2) ** 5
     valid = np.isfinite(lt)
     if meas.form == "samples":
-        logd = dist.logpdf(np.broadcast_to(q[None, :, None, None], lt.shape), np.where(valid, lt, 0.0))
+        logd = dist.logpdf(np.broadcast_to(q[:, :, None, None], lt.shape), np.where(valid, lt, 0.0))
     else:
         logd = dist.logpdf(np.where(valid, lt, 0.0))
     logd = np.where(valid, logd, -np.inf)
     count = valid.sum(axis=(2, 3))
-    with np.errstate(divide="ignore"):
-        per_q = logsumexp(logd.reshape(branches.n, nq, -1), axis=2) - np.log(np.maximum(count, 1))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        per_q = logsumexp(logd.reshape(n, nq, -1), axis=2) - np.log(np.maximum(count, 1))
         per_q = np.where(count > 0, per_q, -np.inf)
-        return logsumexp(per_q + np.log(wq)[None, :], axis=1) - math.log(1.0 - meas.q_min) \
-            if meas.q_min < 1.0 else per_q[:, 0]
+        out = logsumexp(per_q + np.log(wq), axis=1)
+    return np.where(q_lo < 1.0, out, -np.inf) if q_min < 1.0 else out
 
 
 def log_likelihoods(branches: StableBranches, constraints: Constraints, *, densities: list | None = None

@@ -124,7 +124,8 @@ def run_task(work: Work, task: Task) -> dict[str, np.ndarray]:
         h = central_enthalpy(eos, config.axis.quantity, values[task.start : task.stop])
         return star_columns(solve_interiors(eos, h, control=control))
     spec = config.ensembles[task.block]
-    return solve_members(spec, task.start, task.stop, config.axis.quantity, values, control)
+    return solve_members(spec, task.start, task.stop, config.axis.quantity, values, control,
+                         refine=config.solver.ensemble_maxima == "refined")
 
 
 class PartStore:

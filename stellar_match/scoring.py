@@ -21,10 +21,11 @@ Weighted quantiles interpolate linearly between the plotting positions
 p_i = C_i - w_i / 2 (C_i the cumulative normalised weight of the sorted
 values), the weighted form of Hazen's (1914) positions: with equal weights
 they equal ``numpy.quantile(..., method="hazen")``.  The bands use the same
-rule on weighted histograms (bins of :data:`BAND_RADIUS_BIN` km and
-:data:`BAND_LOG_LAMBDA_BIN` in ln Lambda), so that 10^6 members take a fixed
-amount of memory; a star of a twin-star mass shares its member's weight with
-the member's other stars of that mass.
+rule on weighted histograms (the centres of bins of :data:`BAND_RADIUS_BIN`
+km and :data:`BAND_LOG_LAMBDA_BIN` in ln Lambda, so within a bin of the
+quantiles of the values), so that 10^6 members take a fixed amount of
+memory; a star of a twin-star mass shares its member's weight with the
+member's other stars of that mass.
 """
 
 from __future__ import annotations
@@ -52,6 +53,7 @@ __all__ = [
     "write_scores",
     "read_scores",
     "weighted_quantile",
+    "bayes_factors",
     "effective_sample_size",
     "QUANTILE_LEVELS",
     "BAND_LEVELS",
@@ -95,6 +97,20 @@ def weighted_quantile(values, weights, levels) -> np.ndarray:
     return np.interp(levels, position, v)
 
 
+def bayes_factors(log_likelihoods) -> tuple[np.ndarray, np.ndarray]:
+    """Bayes factors against the best model, equal prior odds: (B, ln B).
+
+    ln B = ln L - max ln L over the finite ln L; a model with L = 0 (ln L =
+    -inf) has B = 0; a NaN ln L (not computable) has NaN and takes no part.
+    """
+    ll = np.asarray(log_likelihoods, dtype=float)
+    finite = ll[np.isfinite(ll)]
+    best = finite.max() if finite.size else np.nan
+    with np.errstate(invalid="ignore"):
+        log_b = np.where(ll == -np.inf, -np.inf, ll - best)
+    return np.exp(log_b), log_b
+
+
 def effective_sample_size(weights) -> float:
     """Kish's effective sample size (sum w)^2 / sum w^2 (0 when every weight is 0)."""
     w = np.asarray(weights, dtype=float)
@@ -103,19 +119,13 @@ def effective_sample_size(weights) -> float:
 
 
 def _histogram_quantiles(hist: np.ndarray, lo: float, width: float, levels) -> np.ndarray:
-    """Quantiles (levels x rows) of weighted histograms (rows x bins), linear inside the bin."""
-    total = hist.sum(axis=1)
+    """Quantiles (levels x rows) of weighted histograms (rows x bins): :func:`weighted_quantile` of the
+    occupied bins' centres, so that they differ from the quantiles of the values by less than a bin."""
     out = np.full((len(levels), hist.shape[0]), np.nan)
-    cdf = np.cumsum(hist, axis=1)
-    for k, q in enumerate(levels):
-        for row in np.flatnonzero(total > 0):
-            target = q * total[row]
-            b = int(np.searchsorted(cdf[row], target, side="left"))
-            b = min(b, hist.shape[1] - 1)
-            before = cdf[row, b - 1] if b > 0 else 0.0
-            inside = hist[row, b]
-            frac = (target - before) / inside if inside > 0 else 0.5
-            out[k, row] = lo + (b + min(max(frac, 0.0), 1.0)) * width
+    for row in range(hist.shape[0]):
+        occupied = np.flatnonzero(hist[row] > 0)
+        if occupied.size:
+            out[:, row] = weighted_quantile(lo + (occupied + 0.5) * width, hist[row, occupied], levels)
     return out
 
 
@@ -344,15 +354,9 @@ def score_runs(runs: Sequence, constraints: Constraints, *, band_masses=None, eo
         total = float(np.sum(ll[0])) if ll.shape[1] else math.nan
         candidates[label] = CandidateScore(label, seq_file[id(seq)], ll[0], total, int(status[0]),
                                            float(br.max_mass[0]))
-    finite = [c.log_likelihood for c in candidates.values() if np.isfinite(c.log_likelihood)]
-    best = max(finite) if finite else math.nan
-    for c in candidates.values():
-        if c.log_likelihood == -math.inf:  # L = 0 exactly (e.g. maximum mass below the floor)
-            c.bayes_factor, c.log_bayes_factor = 0.0, -math.inf
-        elif math.isfinite(c.log_likelihood):
-            c.log_bayes_factor = c.log_likelihood - best
-            c.bayes_factor = math.exp(c.log_bayes_factor)
-        # NaN (not computable): stays NaN, and takes no part in the best
+    factors, log_factors = bayes_factors([c.log_likelihood for c in candidates.values()])
+    for c, b, lb in zip(candidates.values(), factors, log_factors, strict=True):
+        c.bayes_factor, c.log_bayes_factor = float(b), float(lb)
 
     scored_ens: dict[str, EnsembleScore] = {}
     available = [(r, n) for r in runs for n in r.ensembles]
@@ -504,23 +508,22 @@ def _bands(run, name, summary, usable, weightings: dict, masses: np.ndarray, mas
             if not active[a:b].any():
                 continue
             br = _member_branches(g, a, b, summary.summaries, usable & active, mass_floor)
-            for which, col, (lo, _hi), width in (("radius", 0, _RADIUS_RANGE, BAND_RADIUS_BIN),
-                                                ("log_lambda", 1, _LOG_LAMBDA_RANGE, BAND_LOG_LAMBDA_BIN)):
-                owner, query, value = values_at_masses(br, masses, which)
+            owner, query, (radius, log_lambda) = values_at_masses(br, masses, ("radius", "log_lambda"))
+            # a twin-star mass: its stars share the member's weight
+            pair = owner * masses.size + query
+            share = 1.0 / np.bincount(pair, minlength=(b - a) * masses.size)[pair]
+            for col, value, lo, width in ((0, radius, _RADIUS_RANGE[0], BAND_RADIUS_BIN),
+                                          (1, log_lambda, _LOG_LAMBDA_RANGE[0], BAND_LOG_LAMBDA_BIN)):
                 ok = np.isfinite(value)
-                owner, query, value = owner[ok], query[ok], value[ok]
-                # a twin-star mass: its stars share the member's weight
-                pair = owner * masses.size + query
-                share = 1.0 / np.bincount(pair, minlength=(b - a) * masses.size)[pair]
                 n_bins = hists[next(iter(hists))][col].shape[1]
-                bins = np.clip(((value - lo) / width).astype(np.int64), 0, n_bins - 1)
-                flat = query * n_bins + bins
+                bins = np.clip(((value[ok] - lo) / width).astype(np.int64), 0, n_bins - 1)
+                flat = query[ok] * n_bins + bins
                 for key, w in weightings.items():
-                    ww = w[a:b][owner] * share
+                    ww = w[a:b][owner[ok]] * share[ok]
                     hists[key][col] += np.bincount(flat, weights=ww, minlength=masses.size * n_bins).reshape(
                         masses.size, n_bins)
                     if col == 0:
-                        hists[key][2] += np.bincount(query, weights=ww, minlength=masses.size)
+                        hists[key][2] += np.bincount(query[ok], weights=ww, minlength=masses.size)
     out = {}
     for key, (hr, hl, support) in hists.items():
         radius = _histogram_quantiles(hr, _RADIUS_RANGE[0], BAND_RADIUS_BIN, BAND_LEVELS)

@@ -176,6 +176,20 @@ def constraints(id_: str, text: str, key: str) -> Case:
     return Case(id_, setup, ("c.toml", key))
 
 
+def scored(id_: str, text: str, *expect: str, files: dict | None = None, argv: tuple = ()) -> Case:
+    """A bad constraints file (or sample file, or option) given to the likelihood command."""
+    def setup(folder: Path, _run: Path) -> list[str]:
+        (folder / "c.toml").write_text(text)
+        for name, content in (files or {}).items():
+            (folder / name).write_text(content)
+        return ["likelihood", "good.h5", "--constraints", "c.toml", "-o", "res.h5", *argv]
+    return Case(id_, setup, expect)
+
+
+#: A valid likelihood-bearing measurement, to pair with a bad one.
+GOOD_MASS = '[[mass]]\nlabel = "m"\nmass = 1.9\nsigma = 0.1\n'
+BINARY = '[[binary]]\nlabel = "b"\nchirp_mass = 1.2\nq_min = {q}\nlambda_tilde = 400\nsigma = 100\n'
+MASS_SAMPLES = '[[mass]]\nlabel = "s"\nsamples = "s.csv"\ncolumn = "m"\n'
 ELLIPSE = ('[[ellipse]]\nlabel = "x"\nmass = 1.4\nradius = 12.0\nsigma_mass = 0.1\nsigma_radius = 0.5\n'
            'correlation = {rho}\n')
 LONG_NAME = "n" * 201
@@ -267,6 +281,39 @@ CASES = [
     constraints("constraints_not_toml", "[[mass]\n", "c.toml"),
     Case("constraints_missing", lambda folder, run: ["overlay", "good.h5", "-o", "fig.png", "--constraints",
                                                       "absent.toml"], ("absent.toml",)),
+    sweep_case("solver_ensemble_maxima", AXIS5 + '[solver]\nensemble_maxima = "guess"\n' + SLY_BLOCK,
+               "solver.ensemble_maxima"),
+    # -- constraints scored by the likelihood command ------------------------------------------
+    scored("likelihood_negative_sigma", '[[redshift]]\nlabel = "z"\nz = 0.3\nsigma = -0.02\n', "c.toml",
+           "redshift[0].sigma"),
+    scored("likelihood_correlation_1", ELLIPSE.format(rho=1.0), "c.toml", "ellipse[0].correlation"),
+    scored("likelihood_q_min_0", BINARY.format(q=0.0), "c.toml", "binary[0].q_min"),
+    scored("likelihood_q_min_above_1", BINARY.format(q=1.5), "c.toml", "binary[0].q_min"),
+    scored("likelihood_credibility_1", '[[binary]]\nlabel = "b"\nchirp_mass = 1.2\nq_min = 0.8\n'
+           'lambda_tilde_upper = 700\ncredibility = 1.0\n', "binary[0].credibility"),
+    scored("likelihood_two_forms", '[[binary]]\nlabel = "b"\nchirp_mass = 1.2\nq_min = 0.8\nlambda_tilde = 4\n'
+           'sigma = 1\nlambda_tilde_upper = 700\ncredibility = 0.9\n', "binary[0]", "only one"),
+    scored("likelihood_mass_floor_negative", "mass_floor = -1.0\n" + GOOD_MASS, "c.toml", "mass_floor"),
+    scored("likelihood_samples_empty", MASS_SAMPLES, "c.toml", "mass[0].samples", "s.csv", "empty",
+           files={"s.csv": ""}),
+    scored("likelihood_samples_not_numbers", MASS_SAMPLES, "mass[0].samples", "s.csv", "line 3",
+           files={"s.csv": "m\n1.4\nheavy\n" + "1.5\n" * 20}),
+    scored("likelihood_samples_too_few", MASS_SAMPLES, "mass[0].samples", "at least",
+           files={"s.csv": "m\n1.4\n1.5\n"}),
+    scored("likelihood_samples_missing", MASS_SAMPLES, "mass[0].samples", "s.csv", "not found"),
+    scored("likelihood_samples_column", '[[mass_radius_samples]]\nlabel = "x"\npath = "s.csv"\n'
+           'mass_column = "M"\nradius_column = "R"\n', "mass_radius_samples[0].path", "lacks column(s) R",
+           files={"s.csv": "M,radius\n" + "1.4,12\n" * 20}),
+    scored("likelihood_samples_degenerate", MASS_SAMPLES, "mass[0].samples", "degenerate",
+           files={"s.csv": "m\n" + "1.4\n" * 20}),
+    scored("likelihood_binary_samples_q", '[[binary]]\nlabel = "b"\nchirp_mass = 1.2\nq_min = 0.8\n'
+           'samples = "s.csv"\nq_column = "q"\nlambda_tilde_column = "lt"\n', "binary[0].samples", "(0, 1]",
+           files={"s.csv": "q,lt\n" + "".join(f"{1.2 + 0.01 * i},{300 + i}\n" for i in range(20))}),
+    scored("likelihood_only_drawn", '[[box]]\nlabel = "b"\nmass_min = 1.0\nmass_max = 2.0\nradius_min = 10\n'
+           'radius_max = 12\n', "c.toml", "no measurement with a likelihood"),
+    scored("likelihood_label_twice", GOOD_MASS + GOOD_MASS, "c.toml", "mass[1].label"),
+    scored("likelihood_output_is_a_run_file", GOOD_MASS, "good.h5", "is a run file", argv=("-o", "good.h5")),
+    scored("likelihood_band_masses", GOOD_MASS, "--band-masses", argv=("--band-masses", "2:1:0.1")),
     # -- run files --------------------------------------------------------------------------
     corrupt("mass_missing", delete("eos/sly/mass"), "/eos/sly/mass", message="missing"),
     corrupt("mass_2d", replace("eos/sly/mass", np.ones((5, 2))), "/eos/sly/mass", command="overlay"),

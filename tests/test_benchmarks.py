@@ -66,3 +66,16 @@ def test_validation_report_prints_a_row_it_computed():
     lines = proc.stdout.splitlines()
     assert len(lines) == 3 and lines[2].startswith("| Schwarzschild radius of Sun / Earth |")
     assert lines[2].endswith(" km / 8.870 mm |")  # 2 GM_earth/c^2 (IAU 2015 B3): 8.870 mm
+
+
+def test_bench_likelihood_quick(tmp_path):
+    report = run_script("bench_likelihood.py", "--quick", json_path=tmp_path / "likelihood.json")
+    assert report["quick"] is True
+    calls = report["sampler_call"]
+    assert calls["goal_ms"] == 15.0
+    for key in ("default_4_measurements", "default_without_binary", "sweep_defaults_4_measurements"):
+        assert calls[key]["best_ms"] > 0 and calls[key]["stars"] == 60
+    # the same EOS and measurements: the sampler settings change ln L by far less than its meaning
+    assert abs(calls["default_4_measurements"]["log_likelihood"]
+               - calls["sweep_defaults_4_measurements"]["log_likelihood"]) < 1e-3
+    assert report["scoring"]["members_per_second"] > 0 and report["implied_1e6_members"]["total_hours"] > 0

@@ -28,14 +28,18 @@ def test_demo_from_another_folder_then_summary(tmp_path, monkeypatch, run_cli):
     elsewhere = tmp_path / "elsewhere"
     elsewhere.mkdir()
     monkeypatch.chdir(elsewhere)  # the bundled inputs must not depend on the current folder
-    code, out, err = run_cli("demo", "--out-dir", "demo_out")
+    code, out, err = run_cli("demo", "--out-dir", "demo_out", "--prior-members", "30")  # a small prior: quick
     assert code == 0, err
+    # the likelihood half: the prior ensemble scored, Bayes factors printed, results and band figure written
+    assert "Bayes factor" in out and "ensemble hdm-prior: " in out and "of 30 members scored" in out
+    for name in ("demo_prior.h5", "demo_likelihood.h5", "demo_likelihood.ecsv", "demo_bands.png"):
+        assert (elsewhere / "demo_out" / name).is_file(), name
     run_path = elsewhere / "demo_out" / "demo.h5"
     assert run_path.is_file()
     assert (elsewhere / "demo_out" / "demo_inputs" / "demo.toml").is_file()
     assert {p.name for p in (elsewhere / "demo_out" / "demo_inputs").glob("*.csv")} >= {
         "hdm_medium.csv", "hdm_soft.csv"}
-    rows = table_rows(out)
+    rows = table_rows(out.split("solving the prior")[0])  # the summary table, before the likelihood half
     assert "M_max" in rows["EOS"]
     run = read_run(run_path)
     assert list(run.eos) == list(DEMO_EOS)

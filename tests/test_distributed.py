@@ -45,6 +45,15 @@ def test_dask_run_equals_serial_and_local_pool_runs(cluster, configs, tmp_path):
     assert not (tmp_path / "dask.h5.parts").exists()
     assert_same_run(dask, serial)
     assert_same_run(pool, serial)
+    # issue 10: the ensemble weights of the three run files are bit-identical too
+    from stellar_match.constraints import parse_constraints
+    from stellar_match.scoring import score_runs
+
+    c = parse_constraints('[[mass]]\nlabel = "m"\nmass = 1.9\nsigma = 0.1\n[[ellipse]]\nlabel = "e"\nmass = 1.4\n'
+                          'radius = 12.0\nsigma_mass = 0.1\nsigma_radius = 0.6\n')
+    weights = [score_runs([p], c).ensembles["prior"].weight for p in (serial, pool, dask)]
+    assert weights[0].sum() > 0
+    assert weights[0].tobytes() == weights[1].tobytes() == weights[2].tobytes()
 
 
 def test_dask_worker_killed_mid_run_is_survived(cluster, configs, tmp_path):

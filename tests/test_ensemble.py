@@ -309,3 +309,23 @@ def test_members_file_error_names_the_config_key(tmp_path, run_cli):
     cfg = _members_config(tmp_path, None)
     _, _, err = run_cli("sweep", cfg, "-o", tmp_path / "ens.h5")
     assert "ensemble[0].members" in assert_one_error_line(err)
+
+
+def test_vertex_maxima_agree_with_refined_ones():
+    # [solver] ensemble_maxima = "vertex": the parabola through the three samples around each maximum
+    # against the default fresh-solve refinement (issue 10: fewer solves for very large ensembles)
+    import numpy as np
+
+    from stellar_match.ensemble import EnsembleSpec, solve_members
+    from stellar_match.structure import StepControl
+
+    params = np.array([[34.384, 3.005, 2.988, 2.851], [34.269, 2.830, 3.445, 3.348], [34.5, 3.2, 2.7, 2.4]])
+    spec = EnsembleSpec(0, "t", "piecewise_polytrope", params, {})
+    values = np.geomspace(2.5e14, 3.5e15, 40)
+    refined = solve_members(spec, 0, 3, "central_density", values, StepControl())
+    vertex = solve_members(spec, 0, 3, "central_density", values, StepControl(), refine=False)
+    ok = refined["status"] == 0
+    assert ok.sum() >= 2
+    assert np.allclose(vertex["max_mass"][ok], refined["max_mass"][ok], rtol=1e-4)
+    assert np.all(vertex["max_mass"][ok] <= refined["max_mass"][ok] * (1 + 1e-6))  # the refined one is the top
+    assert np.array_equal(vertex["mass"], refined["mass"], equal_nan=True)  # the stars themselves are the same
