@@ -517,7 +517,7 @@ def cmd_likelihood(args) -> int:
     masses = parse_range(args.band_masses, "--band-masses") if args.band_masses else None
     runs = _read_runs(args.runs)
     total = sum(e.size for r in runs for e in r.ensembles.values())
-    bar = _Progress(total, what="scoring", unit="member") if total else None
+    bar = _Progress(total, interval=args.log_interval, what="scoring", unit="member") if total else None
     try:
         scores = score_runs(runs, constraints, band_masses=masses, eos=args.eos, ensembles=args.ensemble,
                             progress=bar)
@@ -595,7 +595,7 @@ def _seconds(text: str) -> float:
 def _add_log_interval(s: argparse.ArgumentParser) -> None:
     s.add_argument("--log-interval", type=_seconds, default=DEFAULT_LOG_INTERVAL, metavar="SECONDS",
                    help="when stderr is not a terminal (a batch job's log), log the progress every SECONDS "
-                        f"(stars and members done, rate, time left; default {DEFAULT_LOG_INTERVAL:g}); "
+                        f"(done so far, rate, time left; default {DEFAULT_LOG_INTERVAL:g}); "
                         "on a terminal a progress bar shows it")
 
 
@@ -698,6 +698,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="only this ensemble; repeat for more (default: all)")
     s.add_argument("--band-masses", metavar="MIN:MAX:STEP",
                    help="masses of the credible bands [Msun] (default: mass_floor to the heaviest member, step 0.02)")
+    _add_log_interval(s)
     s.set_defaults(func=cmd_likelihood)
     return p
 
