@@ -5,16 +5,23 @@ file-size limit, a read-only folder, an output held by another run -- surfaces
 as one line on stderr and exit status 2.  An interrupt of a sweep (Ctrl-C, or
 SIGTERM from a batch system at its time limit) stops its workers, keeps the
 finished chunks in ``<out>.parts`` and exits 130 (SIGINT) or 143 (SIGTERM).
+
+This is the only module that configures logging: the library's modules log
+through ``logging.getLogger(__name__)``; here one handler on the
+``stellar_match`` logger writes to stderr, at the level of ``-v``/``-q``.
 """
 
 from __future__ import annotations
 
 import argparse
+import logging
+import math
 import os
-import shutil
 import signal
 import sys
 import threading
+import time
+import tomllib
 import warnings
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -30,6 +37,10 @@ from .schema import STAR_STATUS
 from .sequence import interpolate_on_stable_branch
 
 PROG = "stellar-match"
+#: Seconds between two progress lines of a sweep whose stderr is not a terminal (``--log-interval``).
+DEFAULT_LOG_INTERVAL = 30.0
+#: By name, not __name__: under ``python -m stellar_match.cli`` that is ``__main__``, outside the package logger.
+logger = logging.getLogger("stellar_match.cli")
 #: Exit status after SIGINT / SIGTERM: 128 + the signal number, as a shell reports a signal death.
 EXIT_SIGINT = 128 + signal.SIGINT
 EXIT_SIGTERM = 128 + signal.SIGTERM
@@ -70,13 +81,6 @@ def _sweep_signals() -> Iterator[None]:
             signal.signal(signal.SIGXFSZ, old_xfsz)
 
 
-def _progress_bar(total: int, desc: str):
-    from tqdm import tqdm
-
-    return tqdm(total=total, desc=desc, unit="star", file=sys.stderr, disable=None,
-                dynamic_ncols=True, leave=False)
-
-
 def _fmt(x: float, spec: str) -> str:
     return format(x, spec) if np.isfinite(x) else "-"
 
@@ -93,11 +97,31 @@ def _at_1_4(seq, column: str) -> tuple[float, bool]:
     return interpolate_on_stable_branch(seq, 1.4, column), False
 
 
+#: Columns of the summary table: (heading, unit, meaning); `summary --help` lists them from here.
+SUMMARY_COLUMNS = (
+    ("EOS", "", "name of the /eos/<name> group"),
+    ("kind", "", "EOS kind (piecewise_polytrope, polytrope, table, incompressible)"),
+    ("M_max", "[Msun]", "maximum mass ending the stable branch ('-': none in the sweep)"),
+    ("R(M_max)", "[km]", "radius of the maximum-mass star"),
+    ("rho_c(M_max)", "[g/cm3]", "central rest-mass density of the maximum-mass star"),
+    ("R(1.4)", "[km]", "radius at 1.4 Msun"),
+    ("z(1.4)", "[1]", "surface redshift at 1.4 Msun"),
+    ("Lambda(1.4)", "[1]", "tidal deformability at 1.4 Msun"),
+    ("I(1.4)", "[1e45 g cm2]", "moment of inertia at 1.4 Msun"),
+    ("causal", "", "yes if c_s <= c up to the maximum-mass central density"),
+)
+SUMMARY_NOTES = """\
+Values at 1.4 Msun are exact solves where the run has 1.4 in [sweep] target_masses, else
+interpolated along the stable branch (a note says so).  Notes below the table: an EOS
+without a maximum and why; per EOS, how many stars are NaN for each star_status and why;
+per [[ensemble]], its members, how many are ok with their M_max range, and the counts of
+every other member status."""
+
+
 def summary_table(run) -> str:
-    """Plain-text table: one row per EOS of a run file."""
-    head = ("EOS", "kind", "M_max", "R(M_max)", "rho_c(M_max)", "R(1.4)", "z(1.4)", "Lambda(1.4)",
-            "I(1.4)", "causal")
-    units_row = ("", "", "[Msun]", "[km]", "[g/cm3]", "[km]", "[1]", "[1]", "[1e45 g cm2]", "")
+    """Plain-text table: one row per EOS of a run file (columns: :data:`SUMMARY_COLUMNS`)."""
+    head = tuple(c[0] for c in SUMMARY_COLUMNS)
+    units_row = tuple(c[1] for c in SUMMARY_COLUMNS)
     rows = []
     interpolated = False
     for name, seq in run.eos.items():
@@ -143,63 +167,134 @@ def summary_table(run) -> str:
     return "\n".join(lines + notes)
 
 
-def _run_sweep(config_path: Path, out: Path | None, force: bool, *, resume: bool = False,
-               workers: int = 1, scheduler: str | None = None) -> Path:
-    from .config import load_config
+def _run_sweep(config, out: Path | None, force: bool, *, resume: bool = False,
+               workers: int = 1, scheduler: str | None = None,
+               log_interval: float = DEFAULT_LOG_INTERVAL) -> Path:
+    """Run a config (its path, or a loaded SweepConfig) with progress on stderr and the CLI's signals."""
+    from .config import SweepConfig, load_config
     from .sweep import run_config
 
-    config = load_config(config_path)
-    out = out if out is not None else config_path.with_suffix(".h5")
+    if not isinstance(config, SweepConfig):
+        config = load_config(config)
+    out = out if out is not None else config.path.with_suffix(".h5")
     total = config.axis.values.size * (len(config.eos) + sum(e.size for e in config.ensembles))
     members = sum(e.size for e in config.ensembles)
-    bar = _LazyBar(total, "sweep", members)
+    progress = _Progress(total, members, interval=log_interval)
     try:
         with _sweep_signals():
             path = run_config(config, out, force=force, resume=resume, workers=workers, scheduler=scheduler,
-                              progress=bar.update)
+                              progress=progress)
+        progress.close(finished=True)
     except KeyboardInterrupt as exc:  # Terminated too: keep the kind, add where the parts are
-        bar.close()
+        progress.close()
         raise type(exc)(f"{out}.parts") from None
     finally:
-        bar.close()
+        progress.close()
     return path
 
 
-class _LazyBar:
-    """A progress bar that appears with the first finished chunk, so that input
-    errors found while building the EOS print as one clean line.  It shows
-    stars/s, members/s (ensembles) and the time left."""
+def _duration(seconds: float) -> str:
+    seconds = int(round(seconds))
+    return f"{seconds // 3600}:{seconds // 60 % 60:02d}:{seconds % 60:02d}"
 
-    def __init__(self, total: int, desc: str, members: int = 0) -> None:
-        self.total, self.desc, self.members, self.bar = total, desc, members, None
-        self.done_members = 0
-        self.t0 = None
 
-    def update(self, stars: int, members: int = 0) -> None:
-        import time
+class _Progress:
+    """Progress of long work on stderr: a bar on a terminal, else a log line every ``interval`` s.
 
+    Called as ``progress(done, members)`` per finished piece (a sweep's
+    chunk: its stars and ensemble members).  The bar (tqdm) appears with the
+    first piece, so that input errors found before it print as one clean
+    line; it shows the rate, members/s (ensembles) and the time left.  Where
+    stderr is no terminal (a batch job's log file, a pipe), an INFO line of
+    the ``stellar_match.cli`` logger says how much is done, the rates and
+    the time left, at most every ``interval`` seconds and the first one
+    ``interval`` seconds after the start, so a short run prints nothing
+    extra; a run that printed progress lines ends with a ``done`` line.
+    With ``-q`` neither is shown.  Chunks found finished on resume
+    (:meth:`resumed`) count as done but not in the rates.
+    """
+
+    def __init__(self, total: int, members: int = 0, *, interval: float = DEFAULT_LOG_INTERVAL,
+                 what: str = "sweep", unit: str = "star") -> None:
+        self.total, self.members, self.interval, self.what, self.unit = total, members, interval, what, unit
+        self.done = self.done_members = self.resumed_done = self.resumed_members = 0
+        self.start = self.last = time.monotonic()
+        self.lines = 0
+        self.bar = None
+        shown = logger.isEnabledFor(logging.INFO)  # -q: errors only, no bar either
+        self.use_bar = shown and sys.stderr.isatty()
+        self.use_log = shown and not self.use_bar
+
+    def resumed(self, done: int, members: int = 0) -> None:
+        """Pieces finished by an earlier run: done, but not computed now."""
+        self.resumed_done += done
+        self.resumed_members += members
+        self.start = self.last = time.monotonic()  # the rates start with the first piece computed now
+        self._count(done, members)
+
+    def __call__(self, done: int, members: int = 0) -> None:
+        self._count(done, members)
+        now = time.monotonic()
+        if self.use_log and now - self.last >= self.interval:
+            logger.info("%s: %s", self.what, self._status(now))
+            self.last = now
+            self.lines += 1
+
+    def _count(self, done: int, members: int) -> None:
+        self.done += done
+        self.done_members += members
+        if not self.use_bar:
+            return
         if self.bar is None:
-            self.bar = _progress_bar(self.total, self.desc)
-            self.t0 = time.perf_counter()
-        self.bar.update(stars)
+            from tqdm import tqdm
+
+            self.bar = tqdm(total=self.total, desc=self.what, unit=self.unit, file=sys.stderr, dynamic_ncols=True,
+                            leave=False)
+        self.bar.update(done)
         if self.members:
-            self.done_members += members
-            rate = self.done_members / max(time.perf_counter() - self.t0, 1e-9)
+            rate = (self.done_members - self.resumed_members) / max(time.monotonic() - self.start, 1e-9)
             self.bar.set_postfix_str(f"{self.done_members}/{self.members} members, {rate:.1f} members/s",
                                      refresh=False)
 
-    def close(self) -> None:
+    def _status(self, now: float) -> str:
+        elapsed = max(now - self.start, 1e-9)
+        rate = (self.done - self.resumed_done) / elapsed
+        units = f"{self.unit}s"
+        text = f"{self.done}/{self.total} {units} ({100.0 * self.done / max(self.total, 1):.1f} %)"
+        if self.members:
+            text += f", {self.done_members}/{self.members} members"
+        text += f", {rate:.4g} {units}/s"
+        if self.members:
+            text += f", {(self.done_members - self.resumed_members) / elapsed:.4g} members/s"
+        left = self.total - self.done
+        text += f", ETA {_duration(left / rate)}" if rate > 0 else (", ETA unknown" if left else "")
+        if self.resumed_done:
+            text += f" ({self.resumed_done} {units} from resumed chunks)"
+        return text
+
+    def close(self, finished: bool = False) -> None:
         if self.bar is not None:
             self.bar.close()
             self.bar = None
+        if finished and self.lines:
+            logger.info("%s: done, %d %ss in %s", self.what, self.done, self.unit,
+                        _duration(time.monotonic() - self.start))
+            self.lines = 0
 
 
 def cmd_sweep(args) -> int:
-    if args.workers is not None and args.workers < 1:
-        raise InputError(f"--workers needs a whole number >= 1, got {args.workers}", key="--workers")
+    from .config import load_config
+    from .sweep import run_is_complete
+
+    config_path = Path(args.config)
+    out = Path(args.out) if args.out else config_path.with_suffix(".h5")
+    if args.resume and not args.force and run_is_complete(load_config(config_path), out):
+        print(f"{out}: complete already (a finished run of this config); nothing to resume")
+        print(summary_table(read_run(out)))
+        return 0
     workers = args.workers if args.workers is not None else (os.cpu_count() or 1)
-    path = _run_sweep(Path(args.config), Path(args.out) if args.out else None, args.force,
-                      resume=args.resume, workers=workers, scheduler=args.scheduler)
+    path = _run_sweep(config_path, out, args.force, resume=args.resume, workers=workers,
+                      scheduler=args.scheduler, log_interval=args.log_interval)
     print(f"wrote {path}")
     print(summary_table(read_run(path)))
     return 0
@@ -210,21 +305,45 @@ def cmd_summary(args) -> int:
     return 0
 
 
+def _demo_inputs(demo_dir: Path, force: bool) -> None:
+    """Copy the bundled config, tables and constraints into ``demo_dir`` for the user to read and edit.
+
+    A copy that still equals the bundled file is rewritten silently; one the
+    user has edited is overwritten only with ``--force``.  Every copy is
+    checked before any is written, so a refusal changes nothing.
+    """
+    bundled = resources.files("stellar_match.bundled_tables")
+    items = sorted((i for i in bundled.iterdir() if i.name.endswith((".csv", ".toml"))), key=lambda i: i.name)
+    copies = [(demo_dir / item.name, item.read_bytes()) for item in items]
+    for dest, data in copies:
+        if dest.is_dir():
+            raise InputError("is a folder where the demo puts a file; move it away", source=str(dest))
+        try:
+            edited = dest.exists() and dest.read_bytes() != data
+        except OSError as exc:
+            raise InputError(f"cannot read ({exc.strerror or exc})", source=str(dest)) from None
+        if edited and not force:
+            raise InputError("differs from the bundled demo file (edited?); pass --force to overwrite it, "
+                             "or give another --out-dir", source=str(dest))
+    try:
+        demo_dir.mkdir(exist_ok=True)
+        for dest, data in copies:
+            if not dest.exists() or dest.read_bytes() != data:
+                dest.write_bytes(data)
+    except OSError as exc:
+        raise InputError(f"cannot write the demo inputs ({exc.strerror or exc})",
+                         source=str(exc.filename or demo_dir)) from None
+
+
 def cmd_demo(args) -> int:
     out_dir = Path(args.out_dir)
     try:
         out_dir.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise InputError(f"cannot create output folder ({exc.strerror})", source=str(out_dir)) from None
-    # Copy the bundled config and tables so the user can read and edit them.
-    bundled = resources.files("stellar_match.bundled_tables")
     demo_dir = out_dir / "demo_inputs"
-    demo_dir.mkdir(exist_ok=True)
-    for item in bundled.iterdir():
-        if item.name.endswith((".csv", ".toml")):
-            with resources.as_file(item) as src:
-                shutil.copyfile(src, demo_dir / item.name)
-    run_path = _run_sweep(demo_dir / "demo.toml", out_dir / "demo.h5", force=True)
+    _demo_inputs(demo_dir, args.force)
+    run_path = _run_sweep(demo_dir / "demo.toml", out_dir / "demo.h5", True, log_interval=args.log_interval)
     print(f"demo inputs: {demo_dir}")
     print(f"wrote {run_path}")
     run = read_run(run_path)
@@ -245,16 +364,18 @@ def _demo_likelihood(args, demo_dir: Path, out_dir: Path, run_path: Path) -> Non
     """The demo's second half: a prior ensemble scored against the invented measurements."""
     import re
 
+    from .config import load_config, parse_config
     from .constraints import load_constraints
     from .plots import bands_from_results, overlay_figure, save_figure
     from .scoring import score_runs, write_scores
 
     prior_config = demo_dir / "demo_prior.toml"
-    if args.prior_members is not None:
-        text = prior_config.read_text()
-        prior_config.write_text(re.sub(r"(?m)^count = \d+", f"count = {args.prior_members}", text, count=1))
+    config = load_config(prior_config)
+    if args.prior_members is not None:  # the config solved (and stored in the run file), not the user's copy
+        text = re.sub(r"(?m)^count = \d+", f"count = {args.prior_members}", config.text, count=1)
+        config = parse_config(text, source=str(prior_config), base_dir=demo_dir)
     print(f"solving the prior ensemble of {prior_config.name} (about 30 s on 2 cores) ...")
-    prior_path = _run_sweep(prior_config, out_dir / "demo_prior.h5", force=True)
+    prior_path = _run_sweep(config, out_dir / "demo_prior.h5", force=True, log_interval=args.log_interval)
     print(f"wrote {prior_path}")
     constraints = load_constraints(demo_dir / "demo_constraints.toml")
     scores = score_runs([run_path, prior_path], constraints)
@@ -276,6 +397,18 @@ def _read_runs(paths: list[str]):
     return [read_run(p) for p in paths]
 
 
+def _central_axis(runs) -> str:
+    """p_c for the first side panel when some run swept central pressure (its config says so)."""
+    for run in runs:
+        try:
+            sweep = tomllib.loads(str(run.attrs.get("config_toml", ""))).get("sweep", {})
+        except tomllib.TOMLDecodeError:
+            continue
+        if "central_pressure" in sweep:
+            return "central_pressure"
+    return "auto"
+
+
 def cmd_overlay(args) -> int:
     from .exports import check_output_path, select_sequences
     from .plots import FIGURE_FORMATS, bands_from_results, ensemble_band, load_constraints, overlay_figure, save_figure
@@ -289,7 +422,8 @@ def cmd_overlay(args) -> int:
     else:  # an ensemble run file alone: its prior band
         floor = constraints.mass_floor if constraints is not None else 0.5
         bands = [ensemble_band(r, n, mass_floor=floor) for r in runs for n in r.ensembles]
-    save_figure(overlay_figure(sequences, constraints, panels=args.panels and bool(sequences), bands=bands), out)
+    save_figure(overlay_figure(sequences, constraints, panels=args.panels and bool(sequences), bands=bands,
+                               central=_central_axis(runs)), out)
     print(f"wrote {out}")
     return 0
 
@@ -388,10 +522,12 @@ def cmd_likelihood(args) -> int:
     masses = parse_range(args.band_masses, "--band-masses") if args.band_masses else None
     runs = _read_runs(args.runs)
     total = sum(e.size for r in runs for e in r.ensembles.values())
-    bar = _LazyBar(total, "scoring members") if total else None
+    bar = _Progress(total, interval=args.log_interval, what="scoring", unit="member") if total else None
     try:
         scores = score_runs(runs, constraints, band_masses=masses, eos=args.eos, ensembles=args.ensemble,
-                            progress=bar.update if bar else None)
+                            progress=bar)
+        if bar:
+            bar.close(finished=True)
     finally:
         if bar:
             bar.close()
@@ -440,6 +576,51 @@ class _OneLineParser(argparse.ArgumentParser):
         self.exit(2, f"{PROG}: error: {message} (see {self.prog} --help)\n")
 
 
+def _workers(text: str) -> int:
+    """``--workers``: the rule is said here, once."""
+    try:
+        n = int(text)
+    except ValueError:
+        n = 0
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"needs a whole number >= 1 (1: solve in this process), got {text!r}")
+    return n
+
+
+def _seconds(text: str) -> float:
+    try:
+        x = float(text)
+    except ValueError:
+        x = -1.0
+    if not (math.isfinite(x) and x >= 0):
+        raise argparse.ArgumentTypeError(f"needs a number of seconds >= 0, got {text!r}")
+    return x
+
+
+def _add_log_interval(s: argparse.ArgumentParser) -> None:
+    s.add_argument("--log-interval", type=_seconds, default=DEFAULT_LOG_INTERVAL, metavar="SECONDS",
+                   help="when stderr is not a terminal (a batch job's log), log the progress every SECONDS "
+                        f"(done so far, rate, time left; default {DEFAULT_LOG_INTERVAL:g}); "
+                        "on a terminal a progress bar shows it")
+
+
+def _add_eos_filter(s: argparse.ArgumentParser) -> None:
+    # One name per option, repeated for more.  With nargs="+" the option took every word after it,
+    # the positional run files included (`overlay --eos sly RUN.h5 -o x.png` lost RUN.h5).
+    s.add_argument("--eos", action="append", metavar="NAME",
+                   help="only this EOS; repeat for more: --eos sly --eos apr4 (default: all)")
+
+
+def _verbosity_options(parser: argparse.ArgumentParser, suppress: bool) -> None:
+    """-v/-q, on the top-level parser and again after the command (``stellar-match sweep C -q``)."""
+    default = {"default": argparse.SUPPRESS} if suppress else {"default": None}
+    g = parser.add_mutually_exclusive_group()
+    g.add_argument("-v", "--verbose", dest="verbosity", action="store_const", const="verbose", **default,
+                   help="also log debug lines (tasks as they start, resume and assembly steps)")
+    g.add_argument("-q", "--quiet", dest="verbosity", action="store_const", const="quiet", **default,
+                   help="log errors only: no progress bar or progress lines")
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = _OneLineParser(
         prog=PROG,
@@ -449,44 +630,60 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--version", action="version", version=f"%(prog)s {__version__}")
     p.add_argument("--show-warnings", action="store_true",
                    help="print Python warnings (e.g. numpy RuntimeWarnings) on stderr, for debugging")
+    _verbosity_options(p, suppress=False)
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND", parser_class=_OneLineParser)
 
-    s = sub.add_parser("sweep", help="run a sweep config into an HDF5 run file")
+    def command(name: str, **kwargs) -> argparse.ArgumentParser:
+        s = sub.add_parser(name, **kwargs)
+        _verbosity_options(s, suppress=True)
+        return s
+
+    s = command("sweep", help="run a sweep config into an HDF5 run file")
     s.add_argument("config", help="TOML sweep config")
     s.add_argument("-o", "--out", help="run file to write (default: CONFIG with .h5)")
     s.add_argument("--force", action="store_true", help="overwrite an existing run file (and unfinished parts)")
     s.add_argument("--resume", action="store_true",
-                   help="continue an interrupted run from OUT.h5.parts, computing only missing chunks")
-    s.add_argument("--workers", type=int, metavar="N",
+                   help="continue an interrupted run from OUT.h5.parts, computing only missing chunks "
+                        "(a finished run of this config: says so and exits 0)")
+    s.add_argument("--workers", type=_workers, metavar="N",
                    help="local worker processes (default: the number of cores)")
     s.add_argument("--scheduler", metavar="ADDRESS",
                    help="send chunks to an existing Dask scheduler, e.g. tcp://host:8786")
+    _add_log_interval(s)
     s.set_defaults(func=cmd_sweep)
 
-    s = sub.add_parser("summary", help="print max mass, R and z at 1.4 Msun, causality per EOS")
+    width = max(len(c[0]) + len(c[1]) for c in SUMMARY_COLUMNS) + 3
+    columns = "\n".join(f"  {(name + ' ' + unit).strip():<{width}}{meaning}" for name, unit, meaning in SUMMARY_COLUMNS)
+    s = command("summary", help="print max mass, R and z at 1.4 Msun, causality per EOS",
+                formatter_class=argparse.RawDescriptionHelpFormatter,
+                description=f"Print a table with one row per EOS of a run file:\n\n{columns}\n\n{SUMMARY_NOTES}")
     s.add_argument("run", help="HDF5 run file")
     s.set_defaults(func=cmd_summary)
 
-    s = sub.add_parser("demo", help="run the bundled demo (three invented candidate EOS)")
+    s = command("demo", help="run the bundled demo (three invented candidate EOS)")
     s.add_argument("--out-dir", default="runs", help="folder for the demo outputs (default: ./runs)")
+    s.add_argument("--force", action="store_true",
+                   help="overwrite files in OUT_DIR/demo_inputs that differ from the bundled ones (edited)")
     s.add_argument("--prior-members", type=_positive_int, metavar="N",
                    help="members of the demo's prior ensemble (default: as in demo_prior.toml, 1000)")
+    _add_log_interval(s)
     s.set_defaults(func=cmd_demo)
 
-    s = sub.add_parser("overlay", help="plot mass-radius curves of run files over forbidden regions and measurements")
+    s = command("overlay", help="plot mass-radius curves of run files over forbidden regions and measurements")
     s.add_argument("runs", nargs="+", metavar="RUN.h5", help="one or more HDF5 run files")
     s.add_argument("-o", "--out", required=True, metavar="FIG", help="figure to write (.png, .pdf or .svg)")
-    s.add_argument("--eos", action="extend", nargs="+", metavar="NAME", help="only these EOS (default: all)")
+    _add_eos_filter(s)
     s.add_argument("--constraints", metavar="FILE.toml", help="measurements to draw (TOML constraints file)")
-    s.add_argument("--panels", action="store_true", help="add M(rho_c), z(M) and Lambda(M) panels")
+    s.add_argument("--panels", action="store_true",
+                   help="add M(rho_c) (M(p_c) for central-pressure sweeps), z(M) and Lambda(M) panels")
     s.add_argument("--likelihood", metavar="RESULTS.h5",
                    help="draw the prior and posterior R(M) bands of the ensembles scored in this results file")
     s.set_defaults(func=cmd_overlay)
 
-    s = sub.add_parser("redshift", help="export surface redshifts and gravities for spectral fitting")
+    s = command("redshift", help="export surface redshifts and gravities for spectral fitting")
     s.add_argument("run", nargs="?", metavar="RUN.h5", help="HDF5 run file (not with --grid-*)")
     s.add_argument("-o", "--out", metavar="OUT", help="table to write (.ecsv, .csv or .h5)")
-    s.add_argument("--eos", action="extend", nargs="+", metavar="NAME", help="only these EOS (default: all)")
+    _add_eos_filter(s)
     s.add_argument("--stable-only", action="store_true", help="only stars of the stable branch")
     s.add_argument("--masses", metavar="MIN:MAX:STEP", help="solve stable-branch stars at these masses [Msun]")
     s.add_argument("--grid-mass", metavar="MIN:MAX:STEP", help="EOS-independent grid: masses [Msun]")
@@ -495,19 +692,51 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--sigma", type=float, metavar="S", help="1-sigma uncertainty of --observed-z")
     s.set_defaults(func=cmd_redshift)
 
-    s = sub.add_parser("likelihood", help="score run files against measurements: ln L, Bayes factors, "
-                       "ensemble weights and credible bands")
+    s = command("likelihood", help="score run files against measurements: ln L, Bayes factors, "
+                "ensemble weights and credible bands")
     s.add_argument("runs", nargs="+", metavar="RUN.h5", help="one or more HDF5 run files (only read)")
     s.add_argument("--constraints", required=True, metavar="FILE.toml", help="measurements (TOML constraints file)")
     s.add_argument("-o", "--out", required=True, metavar="OUT.h5", help="results file to write (HDF5)")
     s.add_argument("--table", metavar="OUT.ecsv", help="also a table, one row per EOS and ensemble (.ecsv or .csv)")
-    s.add_argument("--eos", action="extend", nargs="+", metavar="NAME", help="only these EOS (default: all)")
-    s.add_argument("--ensemble", action="extend", nargs="+", metavar="NAME",
-                   help="only these ensembles (default: all)")
+    _add_eos_filter(s)
+    s.add_argument("--ensemble", action="append", metavar="NAME",
+                   help="only this ensemble; repeat for more (default: all)")
     s.add_argument("--band-masses", metavar="MIN:MAX:STEP",
                    help="masses of the credible bands [Msun] (default: mass_floor to the heaviest member, step 0.02)")
+    _add_log_interval(s)
     s.set_defaults(func=cmd_likelihood)
     return p
+
+
+class _StderrHandler(logging.Handler):
+    """Log records on stderr, as one line each, written past a progress bar (tqdm.write)."""
+
+    def emit(self, record: logging.LogRecord) -> None:
+        try:
+            from tqdm import tqdm
+
+            tqdm.write(self.format(record), file=sys.stderr)
+        except Exception:  # noqa: BLE001 - logging must never break the run
+            self.handleError(record)
+
+
+@contextmanager
+def _logging_to_stderr(level: int) -> Iterator[None]:
+    """The only logging configuration of the package: one handler on the ``stellar_match`` logger."""
+    package = logging.getLogger("stellar_match")
+    handler = _StderrHandler()
+    handler.setFormatter(logging.Formatter("%(asctime)s %(name)s %(levelname)s: %(message)s",
+                                           datefmt="%Y-%m-%d %H:%M:%S"))
+    old = package.level, package.propagate
+    package.addHandler(handler)
+    package.setLevel(level)
+    package.propagate = False  # a host application's root handlers would print every line twice
+    try:
+        yield
+    finally:
+        package.removeHandler(handler)
+        package.setLevel(old[0])
+        package.propagate = old[1]
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -517,7 +746,8 @@ def main(argv: list[str] | None = None) -> int:
         args = parser.parse_args(argv)
     except SystemExit as exc:  # usage errors (one line, status 2), --help and --version (status 0)
         return int(exc.code or 0)
-    with warnings.catch_warnings():
+    level = {"quiet": logging.ERROR, "verbose": logging.DEBUG}.get(args.verbosity, logging.INFO)
+    with warnings.catch_warnings(), _logging_to_stderr(level):
         # A warning is extra stderr lines: they would break the one-line error contract
         # and bury the real message.  Python's own -W / PYTHONWARNINGS still apply.
         if not (args.show_warnings or sys.warnoptions):

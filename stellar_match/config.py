@@ -65,6 +65,11 @@ class SweepAxis:
     quantity: str
     values: np.ndarray
 
+    def __repr__(self) -> str:
+        v = self.values
+        span = f"{v.min():.4g} to {v.max():.4g} {self.unit}" if v.size else "empty"
+        return f"SweepAxis({self.quantity!r}, {v.size} values, {span})"
+
     @property
     def unit(self) -> str:
         return "g/cm3" if self.quantity == "central_density" else "dyn/cm2"
@@ -189,6 +194,12 @@ class SweepConfig:
     target_masses: list[float] = field(default_factory=list)
     binaries: list[tuple[float, float]] = field(default_factory=list)
     ensembles: list = field(default_factory=list)
+
+    def __repr__(self) -> str:
+        # not the config text and the axis values: those are what the file says
+        where = f"{str(self.path)!r}, " if self.path is not None else ""
+        return (f"SweepConfig({where}{self.axis!r}, eos={[e.name for e in self.eos]}, "
+                f"ensembles={[e.name for e in self.ensembles]})")
 
 
 def load_config(path: str | Path) -> SweepConfig:

@@ -58,6 +58,12 @@ class EnsembleSpec:
     origin: dict
     prior_weight: np.ndarray | None = field(default=None, repr=False)
 
+    def __repr__(self) -> str:
+        o = self.origin
+        where = f"members from {o['members']}" if "members" in o else (
+            f"sampled, seed {o['seed']}" if "seed" in o else "members given")
+        return f"EnsembleSpec({self.name!r}, kind={self.kind!r}, {self.size} members, {where})"
+
     @property
     def size(self) -> int:
         return int(self.parameters.shape[0])

@@ -105,6 +105,12 @@ class SurfaceMatch:
     below_buchdahl: np.ndarray
     photon_sphere_outside: np.ndarray
 
+    def __repr__(self) -> str:
+        c = np.asarray(self.compactness, dtype=float)
+        c = c[np.isfinite(c)]
+        span = f", compactness {c.min():.4g}-{c.max():.4g}" if c.size else ""
+        return f"SurfaceMatch({np.size(self.compactness)} stars{span})"
+
 
 def match_surface(mass_km, radius_km, central_enthalpy) -> SurfaceMatch:
     """Match interior solutions to the exterior at p = 0 (geometric inputs).

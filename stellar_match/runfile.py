@@ -322,7 +322,7 @@ class RunFile:
         self.ensembles = ensembles or {}
 
     def __repr__(self) -> str:
-        return f"RunFile({str(self.path)!r}, eos={list(self.eos)}, ensembles={list(self.ensembles)})"
+        return f"RunFile({str(self.path)!r}, eos={_names(self.eos)}, ensembles={_names(self.ensembles)})"
 
     def ensemble_dataset(self, name: str, column: str, members=slice(None)) -> np.ndarray:
         """Read (part of) a 2-D ensemble dataset, members x stars, from the file."""
@@ -352,6 +352,18 @@ class EnsembleSummary:
 
     def __getitem__(self, key: str) -> np.ndarray:
         return self.summaries[key]
+
+    def __repr__(self) -> str:
+        status = self.summaries.get("status")
+        ok = f", {int(np.count_nonzero(np.asarray(status) == 0))} ok" if status is not None else ""
+        return f"EnsembleSummary({self.name!r}, kind={self.kind!r}, {self.size} members{ok})"
+
+
+def _names(groups: dict, shown: int = 8) -> str:
+    """The first ``shown`` names of a dict of groups, and how many more (a run may hold hundreds)."""
+    names = list(groups)
+    more = f", ... {len(names) - shown} more" if len(names) > shown else ""
+    return "[" + ", ".join(repr(n) for n in names[:shown]) + more + "]"
 
 
 def _attr(v):

@@ -25,6 +25,7 @@ from __future__ import annotations
 import concurrent.futures as cf
 import datetime as _dt
 import json
+import logging
 import multiprocessing as mp
 import os
 import shutil
@@ -49,6 +50,8 @@ except ImportError:  # pragma: no cover - Windows
     fcntl = None
 
 __all__ = ["Task", "Work", "plan_tasks", "PartStore", "RunLock", "run_task", "execute", "SCHEDULER_TIMEOUT"]
+
+logger = logging.getLogger(__name__)
 
 #: Seconds to wait for a Dask scheduler before giving up with one error line.
 SCHEDULER_TIMEOUT = 10.0
@@ -238,6 +241,8 @@ class PartStore:
             except (OSError, ValueError, EOFError, KeyError, zipfile.BadZipFile):
                 arrays = None
             if arrays is None or not _part_fits(task, arrays):
+                logger.warning("%s: part %s cannot be read back whole; its chunk is computed again",
+                               self.folder, task.key)
                 try:
                     self.path(task).unlink(missing_ok=True)
                 except OSError as exc:
@@ -522,6 +527,7 @@ def _worker_run(task: Task):
 
 def _serial(work: Work, tasks: list[Task]) -> Iterator[tuple[Task, dict]]:
     for task in tasks:
+        logger.debug("task %s (%d:%d): started in this process", task.key, task.start, task.stop)
         yield task, run_task(work, task)
 
 
@@ -563,6 +569,7 @@ def _local_pool(work: Work, tasks: list[Task], workers: int) -> Iterator[tuple[T
                     while queue and len(running) < window:
                         t = queue.pop(0)
                         running[pool.submit(_worker_run, t)] = t
+                        logger.debug("task %s (%d:%d): sent to a local worker", t.key, t.start, t.stop)
                     finished, _ = cf.wait(running, return_when=cf.FIRST_COMPLETED)
                     for fut in finished:
                         task = running.pop(fut)
@@ -573,6 +580,8 @@ def _local_pool(work: Work, tasks: list[Task], workers: int) -> Iterator[tuple[T
                 restarts += 1
                 if restarts > POOL_RESTARTS:
                     raise RuntimeError(f"local workers died {restarts} times; giving up") from None
+                logger.warning("a local worker died; restarting the pool (%d of %d), %d chunks to go",
+                               restarts, POOL_RESTARTS, len(pending))
                 continue  # the unfinished tasks stay pending and go to a new pool
             except BaseException:
                 # KeyboardInterrupt (SIGINT, or SIGTERM turned into one by the CLI), GeneratorExit
@@ -606,6 +615,7 @@ def _dask(work: Work, tasks: list[Task], address: str, timeout: float) -> Iterat
         while queue and len(futures) < window:
             t = queue.pop(0)
             futures[client.submit(run_task, shared, t, pure=False, retries=3)] = t
+            logger.debug("task %s (%d:%d): submitted to %s", t.key, t.start, t.stop, address)
         if not futures:
             return
         done_iter = as_completed(list(futures), loop=client.loop)  # this client, not a default one
@@ -616,6 +626,7 @@ def _dask(work: Work, tasks: list[Task], address: str, timeout: float) -> Iterat
             if queue:
                 t = queue.pop(0)
                 f = client.submit(run_task, shared, t, pure=False, retries=3)
+                logger.debug("task %s (%d:%d): submitted to %s", t.key, t.start, t.stop, address)
                 futures[f] = t
                 done_iter.add(f)
     finally:

@@ -67,6 +67,11 @@ class SequenceAnalysis:
     max_mass_radius: float
     status: str
 
+    def __repr__(self) -> str:
+        return (f"SequenceAnalysis({self.stable.size} stars, {int(np.count_nonzero(self.stable))} stable; "
+                f"max_mass={self.max_mass:.6g} km, max_mass_radius={self.max_mass_radius:.6g} km; "
+                f"status={self.status!r})")
+
 
 SolveFn = Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]
 #: Sweeps with fewer stars get their slopes from two extra solves per star.
@@ -309,6 +314,17 @@ class EOSSequence:
 
     def __getitem__(self, key: str) -> np.ndarray:
         return self.columns[key]
+
+    def __repr__(self) -> str:
+        # a sequence holds ~20 arrays of up to 10^7 stars: name what it is, not every value
+        n = int(np.size(self.columns.get("mass", ())))
+        stable = int(np.count_nonzero(self.stable)) if "stable" in self.columns else 0
+        m_max = self.summary.get("max_mass")
+        m_max = (f"{m_max:.4f} Msun" if isinstance(m_max, int | float) and np.isfinite(m_max)
+                 else f"none ({self.summary.get('max_mass_status', 'not analysed')})")
+        groups = f", groups={sorted(self.groups)}" if self.groups else ""
+        return (f"EOSSequence({self.name!r}, kind={self.kind!r}, {n} stars ({stable} stable), "
+                f"max_mass={m_max}{groups})")
 
     @property
     def stable(self) -> np.ndarray:

@@ -37,7 +37,7 @@ Geometric units throughout (G = c = 1, km); see :mod:`stellar_match.units`.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, fields, replace
 
 import numpy as np
 
@@ -86,6 +86,10 @@ class RungeKuttaTableau:
     a: np.ndarray
     b: np.ndarray
     e: np.ndarray
+
+    def __repr__(self) -> str:
+        # the arrays would fill a screen, in help() signatures too (defaults of StepControl)
+        return f"RungeKuttaTableau({self.name!r}, order={self.order}, stages={self.c.size})"
 
 
 #: Fifth-order solution of Dormand & Prince (1980, J. Comp. Appl. Math. 6, 19),
@@ -175,10 +179,22 @@ class StepControl:
     tolerance: float = DEFAULT_TOLERANCE
     max_refinements: int = MAX_REFINEMENTS
 
+    def __repr__(self) -> str:
+        # only what differs from the defaults: help() shows ``control=StepControl()``
+        changed = [f"{f.name}={getattr(self, f.name)!r}" for f in fields(self)
+                   if not _same_default(getattr(self, f.name), f.default)]
+        return f"StepControl({', '.join(changed)})"
+
     def scaled(self, factor: float) -> StepControl:
         """The same control with every step length multiplied by ``factor``."""
         return replace(self, density_step=self.density_step * factor, enthalpy_step=self.enthalpy_step * factor,
                        startup_growth=self.startup_growth * factor)
+
+
+def _same_default(value, default) -> bool:
+    if isinstance(value, RungeKuttaTableau):  # arrays: compare the object, not elementwise
+        return value is default
+    return type(value) is type(default) and value == default
 
 
 DEFAULT_STEPS = StepControl()
@@ -241,6 +257,19 @@ class StarInteriors:
     error_estimate: np.ndarray | None = None
     status: np.ndarray | None = None
     steps: np.ndarray | None = None
+
+    def __repr__(self) -> str:
+        n = int(np.size(self.mass))
+        ok = n if self.status is None else int(np.count_nonzero(np.asarray(self.status) == 0))
+        parts = [f"{n} stars", f"{ok} within tolerance"]
+        m = units.mass_from_geometric(np.asarray(self.mass, dtype=float))
+        r = np.asarray(self.radius, dtype=float)
+        finite = np.isfinite(m) & np.isfinite(r)
+        if finite.any():
+            parts.append(f"M {m[finite].min():.4g}-{m[finite].max():.4g} Msun, "
+                         f"R {r[finite].min():.4g}-{r[finite].max():.4g} km")
+        parts.append("with k2, Lambda, I" if self.love_number_k2 is not None else "without response equations")
+        return f"StarInteriors({'; '.join(parts)})"
 
 
 def central_series(p_c, eps_c, rho_c, deps_dh_c, x):

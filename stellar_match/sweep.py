@@ -9,6 +9,7 @@ exterior match -> sequence analysis -> run file -- for one EOS
 
 from __future__ import annotations
 
+import logging
 from collections.abc import Callable
 from contextlib import closing
 from pathlib import Path
@@ -26,9 +27,10 @@ from .schema import STAR_DATASETS, TARGET_DATASETS
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 
-__all__ = ["central_enthalpy", "solve_stars", "sweep_eos", "run_config", "MemorySink"]
+__all__ = ["central_enthalpy", "solve_stars", "sweep_eos", "run_config", "run_is_complete", "MemorySink"]
 
 ProgressFn = Callable[[int], None]
+logger = logging.getLogger(__name__)
 
 
 class Sink(Protocol):
@@ -287,7 +289,9 @@ def run_config(
         Overwrite an existing run file and discard unfinished parts.
     resume : bool
         Continue an interrupted run from its ``<out>.parts`` folder,
-        computing only the missing chunks.
+        computing only the missing chunks.  If ``out`` is already the
+        finished run of this config (:func:`run_is_complete`), nothing is
+        done and ``out`` is returned.
     workers : int
         Local worker processes (1: in this process).
     scheduler : str, optional
@@ -295,6 +299,10 @@ def run_config(
         tasks to instead of local workers.
     progress : callable, optional
         Called as ``progress(stars, members)`` after every finished chunk.
+        On resume, the chunks found finished are reported first, through
+        ``progress.resumed(stars, members)`` if the callable has such a
+        method (so that rates count only what this run computes), else as
+        finished chunks.
 
     Returns
     -------
@@ -334,6 +342,9 @@ def run_config(
         raise RunFileError("is a folder; give a file name for the run file", source=str(out))
     if not out.parent.is_dir():  # a typo in a path should not grow a folder tree
         raise StorageError("folder does not exist; create it first", source=str(out.parent))
+    if resume and not force and run_is_complete(config, out):
+        logger.info("%s: complete already (the same config); nothing to resume", out)
+        return out
     store = PartStore(out, config.text, __version__)
     with RunLock(out):  # everything below touches the output: one run at a time
         _prepare_parts(store, out, force=force, resume=resume)
@@ -345,10 +356,14 @@ def run_config(
         todo = [t for t in tasks if not store.done(t)]
         if todo:
             store.check_writable()
+        logger.debug("%s: %d tasks, %d finished already, %d to compute (%s)", out, len(tasks),
+                     len(tasks) - len(todo), len(todo),
+                     f"Dask scheduler {scheduler}" if scheduler else f"up to {workers} local workers")
         if progress is not None:
+            report = getattr(progress, "resumed", progress)
             for t in tasks:
                 if store.done(t):
-                    progress(*task_stars(config, t))
+                    report(*task_stars(config, t))
         try:
             # closing(): on an interrupt the executor stops its workers at once, not at exit
             with closing(execute(Work(config, tuple(built)), todo, workers=workers,
@@ -361,15 +376,40 @@ def run_config(
             if not any(store.done(t) for t in tasks):  # e.g. an unreachable scheduler: nothing to keep
                 store.remove()
             raise
+        logger.debug("%s: every chunk done; assembling the run file", out)
         path = _assemble(config, built, tasks, store, out)
         store.remove()
     return path
+
+
+def run_is_complete(config: SweepConfig, out: str | Path) -> bool:
+    """True when ``out`` is a finished run file of exactly this config, with no unfinished run on it.
+
+    A file is written under its final name only once it is whole (see
+    :func:`run_config`), so such a file is complete and ``resume`` has
+    nothing left to do.  Only the root attributes are read.
+    """
+    import h5py
+
+    out = Path(out)
+    if not out.is_file() or out.with_name(out.name + ".parts").exists():
+        return False
+    try:
+        with h5py.File(out, "r") as f:
+            fmt, text = f.attrs.get("format"), f.attrs.get("config_toml")
+    except OSError:
+        return False
+    text = text.decode() if isinstance(text, bytes) else text
+    return fmt in ("stellar_match.run", b"stellar_match.run") and text == config.text
 
 
 def _prepare_parts(store, out: Path, *, force: bool, resume: bool) -> None:
     """Check an output against its parts folder and (re)create the folder as asked."""
     # an existing file may be overwritten with --force, or by resuming an interrupted --force run
     if out.exists() and not force and not (resume and store.exists()):
+        if resume:  # run_config returned before the lock if this very run were complete
+            raise RunFileError("exists already and holds a different run (not this config); "
+                               "pass --force to overwrite it", source=str(out))
         raise RunFileError("exists already; pass --force to overwrite it", source=str(out))
     if store.exists():
         if force:

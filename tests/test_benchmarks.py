@@ -43,6 +43,31 @@ def test_bench_sequence_small(tmp_path):
     assert {"ratio_case1_over_case3", "response_cost_factor"} <= report.keys()
 
 
+def readme_validation_cases() -> list[str]:
+    """The case column of README's validation table."""
+    text = (BENCHMARKS.parent / "README.md").read_text(encoding="utf-8")
+    section = text.split("## Validation", 1)[1].split("\n## ", 1)[0]
+    rows = [line for line in section.splitlines() if line.startswith("| ") and not line.startswith("| case ")]
+    return [line[2:].split(" | ")[0] for line in rows]
+
+
+def test_validation_report_computes_every_row_of_the_readme_table():
+    # issue 13: the script printed 9 of the table's rows; each row is now a computation of its own
+    proc = subprocess.run([sys.executable, str(BENCHMARKS / "validation_report.py"), "--list"],
+                          capture_output=True, text=True, timeout=120, check=False)
+    assert proc.returncode == 0, proc.stderr
+    assert proc.stdout.splitlines() == readme_validation_cases()
+
+
+def test_validation_report_prints_a_row_it_computed():
+    proc = subprocess.run([sys.executable, str(BENCHMARKS / "validation_report.py"), "--only", "Schwarzschild radius"],
+                          capture_output=True, text=True, timeout=120, check=False)
+    assert proc.returncode == 0, proc.stderr
+    lines = proc.stdout.splitlines()
+    assert len(lines) == 3 and lines[2].startswith("| Schwarzschild radius of Sun / Earth |")
+    assert lines[2].endswith(" km / 8.870 mm |")  # 2 GM_earth/c^2 (IAU 2015 B3): 8.870 mm
+
+
 def test_bench_likelihood_quick(tmp_path):
     report = run_script("bench_likelihood.py", "--quick", json_path=tmp_path / "likelihood.json")
     assert report["quick"] is True

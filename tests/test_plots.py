@@ -7,6 +7,7 @@ import shutil
 import numpy as np
 import pytest
 from conftest import EOS_TABLES, SLY_BLOCK, assert_one_error_line
+from matplotlib.figure import Figure
 
 from stellar_match import units
 from stellar_match.errors import ConfigError
@@ -130,7 +131,7 @@ def test_cli_writes_figure_for_one_and_several_runs(runs, tmp_path, run_cli, ext
     assert code == 0, err
     assert one.read_bytes().startswith(magic)
     several = tmp_path / f"several.{ext}"
-    code, out, err = run_cli("overlay", runs[0], runs[1], "-o", several, "--panels", "--eos", "sly", "stiff")
+    code, out, err = run_cli("overlay", runs[0], runs[1], "-o", several, "--panels", "--eos", "sly", "--eos", "stiff")
     assert code == 0, err
     assert several.read_bytes().startswith(magic)
 
@@ -145,7 +146,7 @@ def test_demo_writes_overlay_and_redshift_table(runs, tmp_path, run_cli, monkeyp
     from stellar_match import cli
 
     # the demo sweep itself is tested in test_cli.py; a small run stands in for it here
-    monkeypatch.setattr(cli, "_run_sweep", lambda config, out, force: shutil.copyfile(runs[0], out))
+    monkeypatch.setattr(cli, "_run_sweep", lambda config, out, force, **kw: shutil.copyfile(runs[0], out))
     code, out, err = run_cli("demo", "--out-dir", tmp_path / "demo")
     assert code == 0, err
     assert (tmp_path / "demo" / "demo_overlay.png").read_bytes().startswith(b"\x89PNG")
@@ -195,3 +196,126 @@ def test_table_runs_copy_alongside(tmp_path):
                    'unit = "erg/cm3" }\nrest_mass_density = { column = "rho", unit = "g/cm3" }\n')
     fig = overlay_figure(select_sequences([read_run(run_config(cfg, tmp_path / "t.h5"))]))
     assert "soft:stable" in lines_by_gid(fig)
+
+
+# --- composing into the user's own layout (issue 13) ------------------------------------
+
+UNIFORM = """\
+[sweep]
+central_pressure = { min = 1e33, max = 1e36, count = 12 }
+[[eos]]
+name = "uniform"
+kind = "incompressible"
+energy_density = 1.0e15
+"""
+
+
+def drawn(ax) -> int:
+    """Everything a plot call can leave in an Axes."""
+    return len(ax.lines) + len(ax.patches) + len(ax.collections) + len(ax.texts) + (ax.get_legend() is not None)
+
+
+def test_overlay_into_one_axes_of_a_users_grid(runs):
+    seqs = select_sequences([read_run(runs[0]), read_run(runs[1])])
+    fig = Figure()
+    grid = fig.subplots(2, 2)
+    art = overlay_figure(seqs, ax=grid[0, 1])
+    assert art.figure is fig and art.axes == {"mr": grid[0, 1]}
+    target = grid[0, 1]
+    gids = {ln.get_gid() for ln in target.lines}
+    assert {"sly:stable", "stiff:stable", "sly:max_mass", "forbidden:horizon"} <= gids
+    assert all(ln.axes is target for lines in art.lines.values() for ln in lines)
+    assert len(fig.axes) == 4 and not fig.legends and not fig.texts  # nothing else was created
+    assert [drawn(a) for a in grid.flat if a is not target] == [0, 0, 0]
+    assert target.get_legend() is art.legend
+
+
+def test_overlay_panels_into_a_dict_or_a_sequence_of_axes(runs):
+    seqs = select_sequences([read_run(runs[0])])
+    fig = Figure()
+    grid = fig.subplots(2, 2)
+    art = overlay_figure(seqs, ax={"z": grid[1, 0]}, legend=None)
+    assert list(art.axes) == ["z"] and art.legend is None
+    assert "sly:stable" in {ln.get_gid() for ln in grid[1, 0].lines}
+    assert [drawn(a) for a in (grid[0, 0], grid[0, 1], grid[1, 1])] == [0, 0, 0]
+    fig = Figure()
+    art = overlay_figure(seqs, ax=fig.subplots(2, 2))  # in the order of PANELS
+    assert list(art.axes) == ["mr", "central", "z", "lam"] and len(fig.axes) == 4
+    assert all(any(ln.get_gid() == "sly:stable" for ln in a.lines) for a in art.axes.values())
+    with pytest.raises(ValueError, match="panels=True"):
+        overlay_figure(seqs, ax=fig.axes[0], panels=True)
+    with pytest.raises(ValueError, match="unknown panel 'rho'"):
+        overlay_figure(seqs, ax={"rho": fig.axes[0]})
+
+
+def test_a_figure_to_draw_into_gives_the_usual_layout(runs):
+    fig = Figure(figsize=(11, 9))
+    art = overlay_figure(select_sequences([read_run(runs[0])]), ax=fig, panels=True)
+    assert art.figure is fig and len(fig.axes) == 4 and len(fig.legends) == 1
+    assert isinstance(overlay_figure(select_sequences([read_run(runs[0])])), Figure)  # no ax: a Figure, as before
+
+
+def test_palette_and_markers_stay_distinct_for_eight_eos(runs):
+    seq = read_run(runs[0]).eos["sly"]
+    art = overlay_figure([(f"eos{i}", seq) for i in range(8)], ax=Figure())
+    colours = [art.lines[f"eos{i}"][0].get_color() for i in range(8)]
+    markers = [art.lines[f"eos{i}"][0].get_marker() for i in range(8)]
+    # Okabe & Ito 2008, "Color Universal Design" (jfly.uni-koeln.de/color/): the published eight
+    published = {"#000000", "#E69F00", "#56B4E9", "#009E73", "#F0E442", "#0072B2", "#D55E00", "#CC79A7"}
+    assert {c.upper() for c in colours} == published
+    assert len(set(markers)) == 8
+    stable = art.lines["eos0"][0]
+    assert stable.get_gid() == "eos0:stable"
+    assert stable.get_markevery() is not None  # markers along the curve, not only at M_max
+    starts = {art.lines[f"eos{i}"][0].get_markevery()[0] for i in range(8)}
+    assert len(starts) == 8  # staggered: markers of identical curves do not sit on each other
+
+
+def test_each_forbidden_region_has_a_legend_entry(runs):
+    from stellar_match.exports import FORBIDDEN_REGIONS
+
+    fig = overlay_figure(select_sequences([read_run(runs[0])]))
+    legend = fig.legends[0]
+    texts = [t.get_text() for t in legend.get_texts()]
+    regions = {p.get_gid(): p for p in fig.axes[0].collections if (p.get_gid() or "").startswith("region:")}
+    for name, (_, label, _) in FORBIDDEN_REGIONS.items():
+        i = texts.index(f"forbidden: {label}")
+        handle = legend.legend_handles[i]
+        # the entry is filled with the region's own grey
+        assert tuple(handle.get_facecolor()) == tuple(regions[f"region:{name}"].get_facecolor()[0])
+
+
+@pytest.mark.parametrize("layout", ["single", "panels", "small_user_axes"])
+def test_region_labels_stay_inside_the_axes(runs, layout):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    seqs = select_sequences([read_run(runs[0]), read_run(runs[1])])
+    c = parse_constraints(CONSTRAINTS)
+    if layout == "small_user_axes":
+        fig = Figure(figsize=(5, 4))
+        art = overlay_figure(seqs, c, ax=fig.subplots(2, 2)[0, 0], legend=None)
+    else:
+        fig = Figure(figsize=(11.5, 9.6) if layout == "panels" else (7.6, 7.4))
+        art = overlay_figure(seqs, c, ax=fig, panels=layout == "panels")
+    FigureCanvasAgg(fig).draw()
+    ax = art.axes["mr"]
+    box = ax.get_window_extent()
+    shown = [t for t in art.labels.values() if t.get_visible() and t.axes is ax]
+    assert len(shown) == 3 if layout != "small_user_axes" else shown
+    for text in shown:
+        extent = text.get_window_extent()
+        assert box.x0 <= extent.x0 and extent.x1 <= box.x1 and box.y0 <= extent.y0 and extent.y1 <= box.y1, \
+            (text.get_text(), extent, box)
+
+
+def test_central_pressure_sweep_has_a_pressure_panel(tmp_path):
+    cfg = tmp_path / "uniform.toml"
+    cfg.write_text(UNIFORM)
+    seq = read_run(run_config(cfg, tmp_path / "uniform.h5")).eos["uniform"]
+    art = overlay_figure([("uniform", seq)], ax=Figure(), panels=True)
+    ax = art.axes["central"]
+    assert "p_c" in ax.get_xlabel() and ax.get_xscale() == "log"
+    line = next(ln for ln in ax.lines if ln.get_gid() == "uniform:stable")
+    np.testing.assert_array_equal(np.sort(line.get_xdata()), np.sort(seq["central_pressure"][seq.stable]))
+    # a density sweep keeps rho_c
+    assert "rho_c" in overlay_figure([("uniform", seq)], ax=Figure(), panels=True,
+                                     central="central_density").axes["central"].get_xlabel()
