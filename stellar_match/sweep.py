@@ -22,7 +22,7 @@ from .eos import EquationOfState, central_enthalpy
 from .errors import ConfigError, InputError, RunFileError, StorageError
 from .exterior import star_columns
 from .runfile import RunFileWriter
-from .schema import STAR_DATASETS, TARGET_DATASETS
+from .schema import BINARY_DATASETS, STAR_DATASETS, TARGET_DATASETS
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 
@@ -230,7 +230,7 @@ def _targets_group(eos, seq: EOSSequence, masses, control) -> dict:
               else "not computed to tolerance within the step budget" if np.isfinite(code) and code != 0
               else _why_missing(seq, t)
               for t, m, code in zip(masses, stars["mass"], stars["star_status"], strict=True)]
-    data = {"requested_mass": (masses, "Msun")}
+    data = {"requested_mass": (masses, TARGET_DATASETS["requested_mass"])}
     for k, unit in TARGET_DATASETS.items():
         if k != "requested_mass":
             data[k] = (stars[k], unit)
@@ -245,10 +245,10 @@ def _binaries_group(eos, seq: EOSSequence, pairs, control) -> dict:
     l1 = np.array([lam[m] for m in pairs[:, 0]])
     l2 = np.array([lam[m] for m in pairs[:, 1]])
     return {"attrs": {}, "data": {
-        "mass_1": (pairs[:, 0], "Msun"),
-        "mass_2": (pairs[:, 1], "Msun"),
-        "chirp_mass": (chirp_mass(pairs[:, 0], pairs[:, 1]), "Msun"),
-        "lambda_tilde": (lambda_tilde(pairs[:, 0], pairs[:, 1], l1, l2), "1"),
+        "mass_1": (pairs[:, 0], BINARY_DATASETS["mass_1"]),
+        "mass_2": (pairs[:, 1], BINARY_DATASETS["mass_2"]),
+        "chirp_mass": (chirp_mass(pairs[:, 0], pairs[:, 1]), BINARY_DATASETS["chirp_mass"]),
+        "lambda_tilde": (lambda_tilde(pairs[:, 0], pairs[:, 1], l1, l2), BINARY_DATASETS["lambda_tilde"]),
     }}
 
 
@@ -386,7 +386,7 @@ def _prepare_parts(store, out: Path, *, force: bool, resume: bool) -> None:
 def _assemble(config: SweepConfig, built, tasks, store, out: Path) -> Path:
     """Write the run file from the parts: complete under its final name, or not there at all."""
     control = config.solver.control()
-    writer = RunFileWriter(out, config_text=config.text, force=True)
+    writer = RunFileWriter(out, config_text=config.text, force=True, **config.output.writer_options())
     try:
         for eos, spec in zip(built, config.eos, strict=True):
             h_all = central_enthalpy(eos, config.axis.quantity, config.axis.values)

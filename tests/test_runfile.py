@@ -35,25 +35,26 @@ energy_density = {{ column = "eps", unit = "erg/cm3" }}
 rest_mass_density = {{ column = "rho", unit = "g/cm3" }}
 """
 
-#: The units the spec (issue) requires for every per-star dataset.
+#: The units the spec (issue) requires for every per-star dataset, in astropy's spelling since
+#: format 3 (issue 13: every unit attribute parses with astropy.units.Unit).
 SPEC_UNITS = {
-    "central_density": "g/cm3",
-    "central_energy_density": "g/cm3",
-    "central_pressure": "dyn/cm2",
-    "mass": "Msun",
+    "central_density": "g / cm3",
+    "central_energy_density": "g / cm3",
+    "central_pressure": "dyn / cm2",
+    "mass": "solMass",
     "radius": "km",
-    "baryon_mass": "Msun",
-    "compactness": "1",
-    "surface_redshift": "1",
-    "surface_gravity": "cm/s2",
+    "baryon_mass": "solMass",
+    "compactness": "",
+    "surface_redshift": "",
+    "surface_gravity": "cm / s2",
     # issue #3 additions
-    "love_number_k2": "1",
-    "tidal_deformability": "1",
+    "love_number_k2": "",
+    "tidal_deformability": "",
     "moment_of_inertia": "g cm2",
-    "binding_energy": "Msun",
+    "binding_energy": "solMass",
     # issue #9 additions: every star's own quality
-    "error_estimate": "1",
-    "star_status": "1",
+    "error_estimate": "",
+    "star_status": "",
 }
 SPEC_GROUP_ATTRIBUTES = ("kind", "parameters", "causal", "max_mass", "max_mass_radius", "max_mass_central_density")
 
@@ -77,7 +78,7 @@ def test_root_attributes(tiny_run):
     with h5py.File(path, "r") as f:
         a = f.attrs
         assert a["format"] == "stellar_match.run"
-        assert a["format_version"] == 2  # 2: per-star star_status and error_estimate
+        assert a["format_version"] == 3  # 2: per-star star_status and error_estimate; 3: units, dimension scales
         assert a["software_version"] == stellar_match.__version__
         assert a["config_toml"] == cfg.read_text()
         created = dt.datetime.fromisoformat(a["created_utc"])
@@ -124,7 +125,7 @@ def test_datasets_and_units(tiny_run):
         for name in ("sly", "soft"):
             g = f["eos"][name]
             datasets = {k for k, v in g.items() if isinstance(v, h5py.Dataset)}
-            assert datasets == set(SPEC_UNITS) | {"stable"}
+            assert datasets == set(SPEC_UNITS) | {"stable", "star"}  # star: the dimension scale
             for col, unit in SPEC_UNITS.items():
                 d = g[col]
                 assert d.ndim == 1 and d.shape[0] == N_STARS, col
@@ -234,8 +235,8 @@ def test_read_run_rejects_a_newer_format_version(tiny_run, tmp_path):
     path = tmp_path / "future.h5"
     path.write_bytes(tiny_run[1].read_bytes())
     with h5py.File(path, "a") as f:
-        f.attrs["format_version"] = 3
-    with pytest.raises(RunFileError, match="format_version 3"):
+        f.attrs["format_version"] = 4
+    with pytest.raises(RunFileError, match="format_version 4"):
         read_run(path)
 
 
