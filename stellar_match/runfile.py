@@ -55,6 +55,7 @@ from .schema import (
     DIMENSIONS,
     FORMAT,
     FORMAT_VERSION,
+    MEMBER_PARAMETER_UNITS,
     MEMBER_STATUS,
     MEMBER_SUMMARIES,
     STAR_DATASETS,
@@ -379,6 +380,19 @@ class RunFile:
     def __repr__(self) -> str:
         return f"RunFile({str(self.path)!r}, eos={list(self.eos)}, ensembles={list(self.ensembles)})"
 
+    def ensemble_stars(self, name: str, columns, members: slice = slice(None)) -> dict[str, np.ndarray]:
+        """Several 2-D ensemble datasets (members x stars) for a slice of members, in one read.
+
+        A per-star column the file's format version lacks (``star_status`` and
+        ``error_estimate`` before format 2) is left out of the result.
+        """
+        with _open_run(self.path) as f:  # checked again: the file may have changed since it was read
+            try:
+                g = f["ensemble"][name]
+            except KeyError:
+                raise RunFileError(f"no ensemble {name!r}", source=str(self.path)) from None
+            return {c: g[c][members] for c in columns if c in g}
+
     def ensemble_dataset(self, name: str, column: str, members=slice(None)) -> np.ndarray:
         """Read (part of) a 2-D ensemble dataset, members x stars, from the file."""
         with _open_run(self.path) as f:  # checked again: the file may have changed since it was read
@@ -407,6 +421,20 @@ class EnsembleSummary:
 
     def __getitem__(self, key: str) -> np.ndarray:
         return self.summaries[key]
+
+    def to_table(self):
+        """One row per member: ``member`` index, the member parameters and the summaries, as a QTable.
+
+        Units are the schema's (``max_mass`` in solMass, ``radius_at_1.4`` in
+        km, ``log10_p1`` in dex(dyn / cm2)); ``status`` is the member status
+        code (meanings in ``meta["status_meaning"]``).
+        """
+        from . import units
+
+        columns = {"member": np.arange(self.size)} | dict(self.members) | dict(self.summaries)
+        unit_of = dict(MEMBER_PARAMETER_UNITS) | dict(MEMBER_SUMMARIES)
+        return units.quantity_table(columns, unit_of, meta={"name": self.name, "kind": self.kind,
+                                                            "status_meaning": self.status_meaning})
 
 
 def _attr(v):

@@ -34,7 +34,7 @@ __all__ = [
     "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "STAR_DATASETS", "STAR_STATUS", "TARGET_DATASETS",
     "BINARY_DATASETS", "SUMMARY_ATTRIBUTES", "NOT_SOLVED", "MEMBER_SUMMARIES", "MEMBER_STATUS", "dataset_dtype",
     "DATASET_SINCE_VERSION", "MAX_NAME_LENGTH", "group_name_problem", "DIMENSIONS", "LEGACY_UNITS",
-    "SWEEP_UNITS", "accepted_units", "DIMENSIONS_SINCE_VERSION",
+    "SWEEP_UNITS", "accepted_units", "DIMENSIONS_SINCE_VERSION", "MEMBER_PARAMETER_UNITS",
 ]
 
 FORMAT = "stellar_match.run"
@@ -129,6 +129,12 @@ def dataset_dtype(name: str):
 #: Per-star datasets that are not in every readable version: name -> first
 #: format version that has it (all others are in every version).
 DATASET_SINCE_VERSION: dict[str, int] = {"error_estimate": 2, "star_status": 2}
+
+#: Units of the member parameters of ensembles (``/ensemble/<name>/members/<parameter>``),
+#: where they have one: log10_p1 is the log10 of a pressure in dyn/cm^2; the
+#: polytropic K (cgs) has a unit that depends on each member's gamma, and the
+#: gammas are dimensionless.  Not stored in the file (the datasets predate it).
+MEMBER_PARAMETER_UNITS: dict[str, str] = {"log10_p1": "dex(dyn / cm2)"}
 
 #: Units of an ensemble's ``sweep_values`` by sweep quantity.
 SWEEP_UNITS: dict[str, str] = {"central_density": "g / cm3", "central_pressure": "dyn / cm2"}

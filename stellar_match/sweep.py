@@ -77,9 +77,10 @@ def solve_stars(
     Parameters
     ----------
     eos : EquationOfState
-    central_density : array_like, optional
-        Central rest-mass densities in g/cm^3.
-    central_pressure : array_like, optional
+    central_density : array_like or Quantity, optional
+        Central rest-mass densities in g/cm^3 (Quantities: any mass density,
+        or a baryon number density, times the neutron mass).
+    central_pressure : array_like or Quantity, optional
         Central pressures in dyn/cm^2 (give exactly one of the two).
     control : StepControl, optional
         Solver accuracy knobs.
@@ -94,7 +95,8 @@ def solve_stars(
         raise InputError("give exactly one of central_density or central_pressure")
     quantity = "central_density" if central_density is not None else "central_pressure"
     values = central_density if central_density is not None else central_pressure
-    h = central_enthalpy(eos, quantity, np.atleast_1d(values))
+    unit = units.DENSITY_UNIT if quantity == "central_density" else units.PRESSURE_UNIT
+    h = central_enthalpy(eos, quantity, np.atleast_1d(units.to_unit(values, unit, name=quantity)))
     return star_columns(solve_interiors(eos, h, control=control))
 
 
@@ -117,8 +119,8 @@ def sweep_eos(
     eos : EquationOfState
     quantity : {"central_density", "central_pressure"}
         The sweep axis (g/cm^3 or dyn/cm^2).
-    values : array_like
-        Central values in sweep order.
+    values : array_like or Quantity
+        Central values in sweep order (Quantities in any unit of the axis).
     control : StepControl, optional
         Solver accuracy knobs.
     chunk_size : int, optional
@@ -127,10 +129,10 @@ def sweep_eos(
         Where results go; default in memory.
     progress : callable, optional
         Called with the number of stars finished after every chunk.
-    target_masses : sequence of float, optional
+    target_masses : sequence of float or Quantity, optional
         Masses (Msun) at which to solve stable-branch stars exactly; stored
         in the ``targets`` subgroup.
-    binaries : sequence of (m1, m2), optional
+    binaries : sequence of (m1, m2) or Quantity, optional
         Component masses (Msun) for which to compute chirp mass and
         Lambda-tilde; stored in the ``binaries`` subgroup.
 
@@ -142,6 +144,8 @@ def sweep_eos(
     memory = sink is None
     sink = MemorySink() if memory else sink
     h_all = central_enthalpy(eos, quantity, values)
+    target_masses = np.ravel(units.to_unit(target_masses, units.MASS_UNIT, name="target_masses"))
+    binaries = np.reshape(units.to_unit(binaries, units.MASS_UNIT, name="binaries"), (-1, 2))
 
     def chunks():
         for start in range(0, h_all.size, chunk_size):
@@ -496,7 +500,7 @@ def stars_at_masses(
         The EOS of ``seq`` (see :func:`eos_from_sequence`).
     seq : EOSSequence
         Its sweep, whose ``stable`` flags and samples give the brackets.
-    masses : array_like
+    masses : array_like or Quantity
         Gravitational masses in Msun.
     control : StepControl, optional
         Solver accuracy knobs (use the run's, for stars consistent with it).
@@ -513,7 +517,7 @@ def stars_at_masses(
     """
     axis = "central_pressure" if seq.kind == "incompressible" else "central_density"
     x, m = _stable_branch(seq, axis)
-    targets = np.atleast_1d(np.asarray(masses, dtype=float))
+    targets = np.atleast_1d(np.asarray(units.to_unit(masses, units.MASS_UNIT, name="masses"), dtype=float))
     names = [k for k in STAR_DATASETS if k != "stable"]
     out = {k: np.full(targets.size, np.nan) for k in names}
     if x.size < 2:

@@ -229,3 +229,35 @@ def polytropic_constant_to_cgs(K, gamma: float):
         return K
     au = _astropy_units()
     return to_unit(K, au.dyn / au.cm**2 / (au.g / au.cm**3) ** float(gamma), name="K")
+
+
+def quantity_table(columns: dict, unit_of: dict, *, descriptions: dict | None = None, meta: dict | None = None):
+    """An ``astropy.table.QTable`` of equal-length columns, with their documented units attached.
+
+    Parameters
+    ----------
+    columns : dict of str -> array_like
+        Columns in order.
+    unit_of : dict of str -> str
+        Unit (astropy spelling) of each column; "" or absent: dimensionless,
+        text, flag or code, kept as a plain column.
+    descriptions : dict of str -> str, optional
+        One line per column.
+    meta : dict, optional
+        Table metadata.
+    """
+    import astropy.units as au
+    from astropy.table import Column, QTable
+
+    table = QTable(meta=dict(meta or {}))
+    for name, values in columns.items():
+        values = np.asarray(values)
+        unit = unit_of.get(name, "")
+        text = (descriptions or {}).get(name)
+        if unit and values.dtype.kind in "fiu":
+            table[name] = values.astype(float) * au.Unit(unit)  # a product: dex units give a Dex quantity
+            if text:
+                table[name].info.description = text
+        else:
+            table[name] = Column(values, description=text)
+    return table
