@@ -355,7 +355,7 @@ class EOSSequence:
         data = dict(self.groups[group])
         attrs = data.pop("attrs", {})
         unit_of = {"targets": TARGET_DATASETS, "binaries": BINARY_DATASETS}.get(group, {})
-        columns = {k: v for k, v in data.items()}
+        columns = dict(data)
         status = attrs.get("status")
         if status is not None and np.ndim(status) == 1 and len(status) == len(next(iter(columns.values()))):
             columns["status"] = np.array([s.decode() if isinstance(s, bytes) else str(s) for s in status])
