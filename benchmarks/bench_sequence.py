@@ -15,7 +15,10 @@ Measures, in one run on one core:
   4. a high-accuracy reference (solve_ivp DOP853, rtol 1e-11) on a subsample,
      for the error figures.
 With --stream-stars N it also runs an N-star sweep into a run file in a child
-process and reports its peak resident memory.
+process and reports its peak resident memory.  With --api it also times the
+public entry point, sm.sweep_eos on the SLy stars of case 1, given plain
+floats and (where the installed stellar_match takes them) astropy Quantities:
+the unit handling at the edges must cost nothing measurable.
 
 Prints stars per second and the maximum relative error of every quantity
 against case 4, and writes the same as JSON (default benchmarks/results/).
@@ -142,6 +145,24 @@ def stream_rss(n_stars: int) -> dict:
             "run_file_mb": size / 2**20}
 
 
+def api_rates(eos, rho, repeat: int = 3) -> dict[str, float]:
+    """Stars per second of the whole public call sm.sweep_eos (solve, match, analysis), best of ``repeat``."""
+    inputs = {"floats": rho}
+    if hasattr(units, "to_unit"):  # stellar_match takes astropy Quantities
+        import astropy.units as u
+
+        inputs["Quantity kg/m3"] = (rho * u.g / u.cm**3).to(u.kg / u.m**3)
+    out = {}
+    for name, values in inputs.items():
+        best = np.inf
+        for _ in range(repeat):
+            t = time.perf_counter()
+            sm.sweep_eos(eos, "central_density", values)
+            best = min(best, time.perf_counter() - t)
+        out[name] = rho.size / best
+    return out
+
+
 def main(argv=None) -> dict:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--stars", type=int, default=2000)
@@ -150,6 +171,7 @@ def main(argv=None) -> dict:
     ap.add_argument("--baseline-rtol", type=float, default=None,
                     help="solve_ivp rtol of the baseline (default: chosen to match the batched accuracy)")
     ap.add_argument("--stream-stars", type=int, default=0)
+    ap.add_argument("--api", action="store_true", help="also time sm.sweep_eos with floats and with Quantities")
     ap.add_argument("--json", type=Path, default=Path(__file__).parent / "results" / "bench_sequence.json")
     args = ap.parse_args(argv)
 
@@ -194,6 +216,8 @@ def main(argv=None) -> dict:
                                       / report["case1_sly"]["stars_per_second"])
     if args.stream_stars:
         report["stream"] = stream_rss(args.stream_stars)
+    if args.api:
+        report["api_sweep_eos"] = api_rates(sly, rho)
 
     print(f"machine: {report['machine']['processor']}, {report['machine']['cpus']} cpus, "
           f"python {report['machine']['python']}, numpy {report['machine']['numpy']}")
@@ -204,6 +228,9 @@ def main(argv=None) -> dict:
     print(f"{'case3_baseline_solve_ivp':28s} {base_rate:10.1f} stars/s   (DOP853 rtol {rtol:g}, error {err:.1e})")
     print(f"ratio case1 / case3: {report['ratio_case1_over_case3']:.0f}x;"
           f" response equations cost {report['response_cost_factor']:.2f}x")
+    if args.api:
+        for k, v in report["api_sweep_eos"].items():
+            print(f"{'sweep_eos (' + k + ')':28s} {v:10.0f} stars/s")
     if args.stream_stars:
         s = report["stream"]
         print(f"stream: {s['stars']} stars to a run file in {s['seconds']:.0f} s, peak RSS {s['peak_rss_mb']:.0f} MB,"

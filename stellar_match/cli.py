@@ -434,9 +434,9 @@ def cmd_redshift(args) -> int:
     meta = {"software": f"{PROG} {__version__}"}
     grid = args.grid_mass is not None or args.grid_radius is not None
     if grid:
-        if args.run is not None or args.masses or args.observed_z is not None:
+        if args.run is not None or args.masses or args.observed_z is not None or args.members is not None:
             raise InputError("--grid-mass/--grid-radius tabulate without a run file: give no RUN.h5, "
-                             "--masses or --observed-z with them")
+                             "--masses, --members or --observed-z with them")
         if args.grid_mass is None or args.grid_radius is None:
             raise InputError("the grid needs both --grid-mass and --grid-radius")
         if args.out is None:
@@ -454,8 +454,12 @@ def cmd_redshift(args) -> int:
     if out is None and args.observed_z is None:
         raise InputError("give -o OUT.csv|ecsv|h5")
     masses = exports.parse_range(args.masses, "--masses") if args.masses else None
+    members = exports.parse_members(args.members) if args.members is not None else None
+    if members is not None and (masses is not None or args.observed_z is not None):
+        raise InputError("--members selects ensemble stars of the star table; not with --masses or --observed-z",
+                         key="--members")
     run = read_run(args.run)
-    sequences = exports.select_sequences([run], args.eos)
+    sequences, ensembles = exports.select_stars([run], args.eos)
     meta["source_run_file"] = str(run.path)
     if args.observed_z is not None:
         table = exports.redshift_window(sequences, args.observed_z, args.sigma, meta=meta)
@@ -467,7 +471,11 @@ def cmd_redshift(args) -> int:
         for note in notes:
             print(f"{PROG}: note: {note}", file=sys.stderr)
     else:
-        table = exports.redshift_table(sequences, stable_only=args.stable_only, meta=meta)
+        if members is not None and not ensembles:
+            raise InputError("--members selects ensemble members, and the selection has no ensemble",
+                             key="--members")
+        table = exports.redshift_table(sequences, keep_unstable=args.keep_unstable, ensembles=ensembles,
+                                       members=members, meta=meta)
     if out is not None:
         print(f"wrote {exports.write_table(table, out)} ({len(table)} rows)")
     return 0
@@ -684,7 +692,11 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("run", nargs="?", metavar="RUN.h5", help="HDF5 run file (not with --grid-*)")
     s.add_argument("-o", "--out", metavar="OUT", help="table to write (.ecsv, .csv or .h5)")
     _add_eos_filter(s)
-    s.add_argument("--stable-only", action="store_true", help="only stars of the stable branch")
+    s.add_argument("--keep-unstable", action="store_true",
+                   help="also export unstable stars and stars without a result (NaN, star_status > 0)")
+    s.add_argument("--stable-only", action="store_true", help=argparse.SUPPRESS)  # the default since format 3
+    s.add_argument("--members", metavar="START:STOP",
+                   help="only these ensemble members (0-based, STOP excluded; default: all)")
     s.add_argument("--masses", metavar="MIN:MAX:STEP", help="solve stable-branch stars at these masses [Msun]")
     s.add_argument("--grid-mass", metavar="MIN:MAX:STEP", help="EOS-independent grid: masses [Msun]")
     s.add_argument("--grid-radius", metavar="MIN:MAX:STEP", help="EOS-independent grid: radii [km]")

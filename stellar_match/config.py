@@ -21,7 +21,7 @@ from .errors import ConfigError, InputError
 from .schema import group_name_problem
 from .structure import DEFAULT_STEPS, DEFAULT_TOLERANCE, StepControl
 
-__all__ = ["SweepAxis", "EOSSpec", "SolverOptions", "SweepConfig", "load_config", "parse_config"]
+__all__ = ["SweepAxis", "EOSSpec", "SolverOptions", "OutputOptions", "SweepConfig", "load_config", "parse_config"]
 
 EOS_KINDS = ("polytrope", "piecewise_polytrope", "table", "incompressible")
 _KIND_KEYS = {
@@ -182,6 +182,49 @@ class SolverOptions:
         return replace(DEFAULT_STEPS.scaled(self.step_scale), tolerance=self.tolerance)
 
 
+@dataclass(frozen=True)
+class OutputOptions:
+    """The optional ``[output]`` table: how the run file is stored.
+
+    Attributes
+    ----------
+    compression : {"none", "gzip"}
+        "gzip" compresses the per-star datasets (of ``[[eos]]`` blocks and
+        ensembles) with gzip and HDF5's byte-shuffle filter.  Readers need
+        nothing for it; the file is smaller (most for ensembles, whose NaN
+        rows of failed members compress to almost nothing) and slower to write.
+    compression_level : int
+        gzip level, 1 (fastest) to 9 (smallest); default 4.
+    """
+
+    compression: str = "none"
+    compression_level: int = 4
+
+    def writer_options(self) -> dict:
+        """Keyword arguments of :class:`~stellar_match.runfile.RunFileWriter`."""
+        return {"compression": None if self.compression == "none" else self.compression,
+                "compression_level": self.compression_level}
+
+
+#: Values of ``[output] compression``.
+COMPRESSIONS = ("none", "gzip")
+
+
+def _output(value: Any, source: str) -> OutputOptions:
+    table = _table(value, source, "output")
+    _no_unknown(table, {"compression", "compression_level"}, source, "output")
+    compression = table.get("compression", "none")
+    if compression not in COMPRESSIONS:
+        raise _fail(source, "output.compression", f"needs one of {', '.join(map(repr, COMPRESSIONS))}, "
+                    f"got {compression!r}")
+    level = table.get("compression_level", OutputOptions.compression_level)
+    if isinstance(level, bool) or not isinstance(level, int) or not 1 <= level <= 9:
+        raise _fail(source, "output.compression_level", f"needs a whole number from 1 to 9, got {level!r}")
+    if "compression_level" in table and compression == "none":
+        raise _fail(source, "output.compression_level", 'applies to compression = "gzip" only')
+    return OutputOptions(compression=compression, compression_level=level)
+
+
 @dataclass
 class SweepConfig:
     """A validated sweep config."""
@@ -194,6 +237,7 @@ class SweepConfig:
     target_masses: list[float] = field(default_factory=list)
     binaries: list[tuple[float, float]] = field(default_factory=list)
     ensembles: list = field(default_factory=list)
+    output: OutputOptions = field(default_factory=OutputOptions)
 
     def __repr__(self) -> str:
         # not the config text and the axis values: those are what the file says
@@ -370,7 +414,7 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"not valid TOML ({exc})", source=source) from None
-    _no_unknown(data, {"sweep", "eos", "solver", "ensemble"}, source, "")
+    _no_unknown(data, {"sweep", "eos", "solver", "ensemble", "output"}, source, "")
     if "sweep" not in data:
         raise _fail(source, "sweep", "missing [sweep] table")
     sweep = _table(data["sweep"], source, "sweep")
@@ -460,4 +504,5 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
         target_masses=targets,
         binaries=binaries,
         ensembles=ensembles,
+        output=_output(data.get("output", {}), source),
     )

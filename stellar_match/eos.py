@@ -390,11 +390,14 @@ def polytrope(name: str, K: float, gamma: float) -> PiecewisePolytrope:
     ----------
     name : str
         Label.
-    K : float
-        Polytropic constant in cgs (p in dyn/cm^2, rho in g/cm^3).
+    K : float or Quantity
+        Polytropic constant in cgs (p in dyn/cm^2, rho in g/cm^3), or a
+        Quantity in any unit of pressure / density^gamma.
     gamma : float
         Adiabatic index, > 1.
     """
+    gamma = units.to_unit(gamma, units.DIMENSIONLESS, name="gamma")
+    K = units.polytropic_constant_to_cgs(K, gamma)
     if not (np.isfinite(K) and K > 0):
         raise InputError(f"K must be positive and finite (got {K!r})", key="K")
     if not (np.isfinite(gamma) and gamma > 1):
@@ -419,8 +422,10 @@ def read_piecewise_polytrope(
     ----------
     name : str
         Label.
-    log10_p1 : float
-        log10 of the pressure (dyn/cm^2) at rho = 10^14.7 g/cm^3.
+    log10_p1 : float or Quantity
+        log10 of the pressure (dyn/cm^2) at rho = 10^14.7 g/cm^3; or a
+        Quantity, either logarithmic (``34.384 * u.dex(u.dyn / u.cm**2)``)
+        or the pressure p1 itself in any pressure unit.
     gammas : sequence of 3 floats
         Gamma_1, Gamma_2, Gamma_3 of the core pieces, dividing densities
         10^14.7 and 10^15.0 g/cm^3.
@@ -430,7 +435,8 @@ def read_piecewise_polytrope(
     The core's first piece is joined to the SLy crust fit (:data:`SLY_CRUST`)
     at the density where their pressures agree, as prescribed by Read et al.
     """
-    gammas = [float(x) for x in gammas]
+    log10_p1 = units.to_unit(log10_p1, units.LOG_PRESSURE_UNIT, name="log10_p1")
+    gammas = [float(x) for x in np.ravel(units.to_unit(gammas, units.DIMENSIONLESS, name="gammas"))]
     if len(gammas) != 3:
         raise InputError("gammas needs exactly three values [G1, G2, G3]", key="gammas")
     if any(not np.isfinite(x) or x <= 0 for x in gammas):
@@ -476,7 +482,11 @@ def read_piecewise_polytrope(
 
 
 def incompressible(name: str, energy_density: float) -> Incompressible:
-    """Uniform-density EOS with energy density ``energy_density`` (g/cm^3, eps/c^2)."""
+    """Uniform-density EOS with energy density ``energy_density`` (g/cm^3, eps/c^2).
+
+    A Quantity may be a mass density or an energy density (erg/cm^3, MeV/fm^3, J/m^3: divided by c^2).
+    """
+    energy_density = units.to_unit(energy_density, units.DENSITY_UNIT, name="energy_density")
     if not (np.isfinite(energy_density) and energy_density > 0):
         raise InputError(
             f"energy_density must be positive (g/cm^3), got {energy_density!r}",
@@ -760,14 +770,15 @@ class BoundEOSStack:
 
 
 def central_enthalpy(eos: EquationOfState, quantity: str, values) -> np.ndarray:
-    """Central log-enthalpies for central densities (g/cm^3) or pressures (dyn/cm^2).
+    """Central log-enthalpies for central densities (g/cm^3) or pressures (dyn/cm^2), or Quantities.
 
     Raises
     ------
     InputError
         For values outside a table's range or the wrong axis for the EOS.
     """
-    values = np.asarray(values, dtype=float)
+    unit = units.DENSITY_UNIT if quantity == "central_density" else units.PRESSURE_UNIT
+    values = np.asarray(units.to_unit(values, unit, name=quantity), dtype=float)
     if np.any(~np.isfinite(values) | (values <= 0)):
         raise InputError(f"{quantity} values must be positive and finite", key=f"sweep.{quantity}")
     if quantity == "central_density":

@@ -1,6 +1,6 @@
 """HDF5 run files: one self-describing file per sweep.
 
-Layout (``format`` = "stellar_match.run", ``format_version`` = 2; names and units in
+Layout (``format`` = "stellar_match.run", ``format_version`` = 3; names and units in
 :mod:`stellar_match.schema`)::
 
     /                       attrs: format, format_version, software_version,
@@ -10,11 +10,19 @@ Layout (``format`` = "stellar_match.run", ``format_version`` = 2; names and unit
                                    max_mass_radius, max_mass_central_density,
                                    max_mass_status, star_status_meaning (JSON)
         <dataset>           1-D, one entry per star in sweep order, attr unit
+        star                dimension scale 0..n-1 of every dataset above
         targets/            (with [sweep] target_masses) one entry per requested mass,
-                            attr status: per-target "found" or why the row is NaN
-        binaries/           (with [sweep] binaries) one entry per pair
+                            attr status: per-target "found" or why the row is NaN;
+                            dimension scale "target"
+        binaries/           (with [sweep] binaries) one entry per pair; dimension scale "binary"
+    /ensemble/<name>/       2-D datasets (member x star), 1-D summaries (member),
+                            sweep_values (star), members/<parameter> (member);
+                            dimension scales "member" and "star"
 
-The datasets and their units are listed in :data:`STAR_DATASETS`.
+The datasets and their units are listed in :data:`STAR_DATASETS`; unit
+attributes use astropy's spelling (``solMass``, ``g / cm3``, ``""``), and the
+dimension scales are HDF5's (``H5DS``), which netCDF-4 readers and xarray's
+``h5netcdf`` engine show as named dimensions.
 
 Writing follows the pattern of an HDF5 sampler backend: resizable datasets
 grow chunk by chunk as stars are solved and are flushed after each chunk;
@@ -44,13 +52,16 @@ from .errors import RunFileError, StorageError
 from .runfile_check import check_run_file
 from .schema import (
     BINARY_DATASETS,
+    DIMENSIONS,
     FORMAT,
     FORMAT_VERSION,
+    MEMBER_PARAMETER_UNITS,
     MEMBER_STATUS,
     MEMBER_SUMMARIES,
     PRIOR_WEIGHT,
     STAR_DATASETS,
     STAR_STATUS,
+    SWEEP_UNITS,
     TARGET_DATASETS,
     dataset_dtype,
 )
@@ -127,6 +138,12 @@ class RunFileWriter:
         The full config, stored verbatim for reproducibility.
     force : bool
         Overwrite an existing file at ``path``.
+    compression : {None, "gzip"}
+        Compress the per-star datasets (of ``/eos/<name>`` groups and
+        ensembles) with gzip and the byte-shuffle filter; readers need no
+        option for it.
+    compression_level : int
+        gzip level, 1 (fastest) to 9 (smallest).
 
     Raises
     ------
@@ -138,8 +155,13 @@ class RunFileWriter:
         then.
     """
 
-    def __init__(self, path: str | Path, *, config_text: str, force: bool = False) -> None:
+    def __init__(self, path: str | Path, *, config_text: str, force: bool = False,
+                 compression: str | None = None, compression_level: int = 4) -> None:
         self.path = Path(path)
+        if compression not in (None, "gzip"):
+            raise ValueError(f"unknown compression {compression!r}")
+        self._filters = ({"compression": "gzip", "compression_opts": int(compression_level), "shuffle": True}
+                         if compression else {})
         if self.path.is_dir():  # found now, not by the rename after the whole sweep
             raise RunFileError("is a folder; give a file name for the run file", source=str(self.path))
         if self.path.exists() and not force:
@@ -192,7 +214,8 @@ class RunFileWriter:
             g.attrs["table_sha256"] = table_sha256
         g.attrs["star_status_meaning"] = json.dumps({str(k): v for k, v in STAR_STATUS.items()})
         for col, (unit, meaning) in columns.items():
-            d = g.create_dataset(col, shape=(0,), maxshape=(None,), dtype=dataset_dtype(col), chunks=(4096,))
+            d = g.create_dataset(col, shape=(0,), maxshape=(None,), dtype=dataset_dtype(col), chunks=(4096,),
+                                 **self._filters)
             d.attrs["unit"] = unit
             d.attrs["description"] = meaning
         self._flush()
@@ -217,6 +240,7 @@ class RunFileWriter:
             d[:] = values
         for k, v in summary.items():
             g.attrs[k] = v
+        _attach_scales(g, ["star"])
         for sub, datasets in (groups or {}).items():
             sg = g.create_group(sub)
             for k, v in datasets.get("attrs", {}).items():
@@ -224,6 +248,7 @@ class RunFileWriter:
             for col, (values, unit) in datasets["data"].items():
                 d = sg.create_dataset(col, data=values)
                 d.attrs["unit"] = unit
+            _attach_scales(sg, [_SUBGROUP_DIMENSION.get(sub, sub)])
         self._flush()
 
     def write_ensemble(self, spec, axis, parts) -> None:
@@ -245,18 +270,22 @@ class RunFileWriter:
             d.attrs["unit"] = "1"
             d.attrs["description"] = "prior weight of each member (the members CSV's weight column)"
         ax = g.create_dataset("sweep_values", data=axis.values)
-        ax.attrs["unit"] = axis.unit
+        ax.attrs["unit"] = SWEEP_UNITS[axis.quantity]
         ax.attrs["quantity"] = axis.quantity
         n, m = spec.size, axis.values.size
         chunk_rows = max(1, min(n, 2**16 // max(m, 1)))
         g.attrs["star_status_meaning"] = json.dumps({str(k): v for k, v in STAR_STATUS.items()})
         for col, (unit, meaning) in STAR_DATASETS.items():
-            d = g.create_dataset(col, shape=(n, m), dtype=dataset_dtype(col), chunks=(chunk_rows, m))
+            d = g.create_dataset(col, shape=(n, m), dtype=dataset_dtype(col), chunks=(chunk_rows, m),
+                                 **self._filters)
             d.attrs["unit"] = unit
             d.attrs["description"] = meaning
         for col, unit in MEMBER_SUMMARIES.items():
             d = g.create_dataset(col, shape=(n,), dtype=dataset_dtype(col))
             d.attrs["unit"] = unit
+        _attach_scales(g, ["member", "star"], sizes={"member": n, "star": m})
+        for d in members.values():
+            d.dims[0].attach_scale(g["member"])
         for task, arrays in parts:
             for col in (*STAR_DATASETS, *MEMBER_SUMMARIES):
                 g[col][task.start : task.stop] = arrays[col]
@@ -304,6 +333,38 @@ class RunFileWriter:
         return self.partial
 
 
+#: The dimension scale of each subgroup of an ``/eos/<name>`` group.
+_SUBGROUP_DIMENSION = {"targets": "target", "binaries": "binary"}
+
+
+def _attach_scales(g: h5py.Group, names: list[str], sizes: dict[str, int] | None = None) -> None:
+    """Create index dimension scales ``names`` in ``g`` and attach them to its datasets.
+
+    One name: the scale's length is that of the (equal-length, 1-D) datasets of
+    the group.  Two names (ensembles): the first labels axis 0 and the second
+    axis 1 of 2-D datasets; 1-D datasets get the one of their length, which
+    ``sizes`` gives.
+    """
+    datasets = [d for k, d in g.items() if isinstance(d, h5py.Dataset) and k not in DIMENSIONS]
+    if sizes is None:
+        sizes = {names[0]: datasets[0].shape[0] if datasets else 0}
+    scales = {}
+    for name in names:
+        # int32 holds every index the size limits allow (10^7 stars, 10^6 members)
+        scale = g.create_dataset(name, data=np.arange(sizes[name], dtype=np.int32))
+        scale.make_scale(name)
+        scale.attrs["description"] = DIMENSIONS[name]
+        scales[name] = scale
+    for d in datasets:
+        if d.ndim == 2:
+            for axis, name in enumerate(names):
+                d.dims[axis].attach_scale(scales[name])
+        elif d.ndim == 1:
+            by_length = [n for n in names if sizes[n] == d.shape[0]]
+            name = "star" if d.name.endswith("/sweep_values") else (by_length or names)[0]
+            d.dims[0].attach_scale(scales[name])
+
+
 class RunFile:
     """A run file read back into memory.
 
@@ -323,6 +384,19 @@ class RunFile:
 
     def __repr__(self) -> str:
         return f"RunFile({str(self.path)!r}, eos={_names(self.eos)}, ensembles={_names(self.ensembles)})"
+
+    def ensemble_stars(self, name: str, columns, members: slice = slice(None)) -> dict[str, np.ndarray]:
+        """Several 2-D ensemble datasets (members x stars) for a slice of members, in one read.
+
+        A per-star column the file's format version lacks (``star_status`` and
+        ``error_estimate`` before format 2) is left out of the result.
+        """
+        with _open_run(self.path) as f:  # checked again: the file may have changed since it was read
+            try:
+                g = f["ensemble"][name]
+            except KeyError:
+                raise RunFileError(f"no ensemble {name!r}", source=str(self.path)) from None
+            return {c: g[c][members] for c in columns if c in g}
 
     def ensemble_dataset(self, name: str, column: str, members=slice(None)) -> np.ndarray:
         """Read (part of) a 2-D ensemble dataset, members x stars, from the file."""
@@ -352,6 +426,20 @@ class EnsembleSummary:
 
     def __getitem__(self, key: str) -> np.ndarray:
         return self.summaries[key]
+
+    def to_table(self):
+        """One row per member: ``member`` index, the member parameters and the summaries, as a QTable.
+
+        Units are the schema's (``max_mass`` in solMass, ``radius_at_1.4`` in
+        km, ``log10_p1`` in dex(dyn / cm2)); ``status`` is the member status
+        code (meanings in ``meta["status_meaning"]``).
+        """
+        from . import units
+
+        columns = {"member": np.arange(self.size)} | dict(self.members) | dict(self.summaries)
+        unit_of = dict(MEMBER_PARAMETER_UNITS) | dict(MEMBER_SUMMARIES)
+        return units.quantity_table(columns, unit_of, meta={"name": self.name, "kind": self.kind,
+                                                            "status_meaning": self.status_meaning})
 
     def __repr__(self) -> str:
         status = self.summaries.get("status")
@@ -423,9 +511,11 @@ def _read_checked(f: h5py.File, path: Path) -> RunFile:
     attrs = {k: _attr(v) for k, v in f.attrs.items()}
     sequences = {}
     for name, g in f["eos"].items():
-        columns = {k: d[()] for k, d in g.items() if isinstance(d, h5py.Dataset)}
+        # dimension scales (star, target, binary) are axes, not columns
+        columns = {k: d[()] for k, d in g.items() if isinstance(d, h5py.Dataset) and k not in DIMENSIONS}
         groups = {
-            k: {n: d[()] for n, d in sg.items()} | {"attrs": {a: _attr(v) for a, v in sg.attrs.items()}}
+            k: {n: d[()] for n, d in sg.items() if n not in DIMENSIONS}
+            | {"attrs": {a: _attr(v) for a, v in sg.attrs.items()}}
             for k, sg in g.items()
             if isinstance(sg, h5py.Group)
         }
@@ -444,6 +534,6 @@ def _read_checked(f: h5py.File, path: Path) -> RunFile:
     for name, g in (f["ensemble"].items() if "ensemble" in f else ()):
         members = {k: d[()] for k, d in g["members"].items()}
         summaries = {k: d[()] for k, d in g.items() if isinstance(d, h5py.Dataset) and d.ndim == 1
-                     and k != "sweep_values"}
+                     and k != "sweep_values" and k not in DIMENSIONS}
         ensembles[name] = EnsembleSummary(name, {k: _attr(v) for k, v in g.attrs.items()}, members, summaries)
     return RunFile(path, attrs, sequences, ensembles)

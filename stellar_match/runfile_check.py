@@ -27,6 +27,8 @@ from .errors import RunFileError
 from .schema import (
     BINARY_DATASETS,
     DATASET_SINCE_VERSION,
+    DIMENSIONS,
+    DIMENSIONS_SINCE_VERSION,
     FORMAT,
     FORMAT_VERSION,
     MEMBER_SUMMARIES,
@@ -34,6 +36,7 @@ from .schema import (
     STAR_DATASETS,
     SUMMARY_ATTRIBUTES,
     TARGET_DATASETS,
+    accepted_units,
     dataset_dtype,
 )
 
@@ -164,8 +167,11 @@ def _group(parent, name: str, where: str) -> h5py.Group:
 
 
 def _dataset(g: h5py.Group, name: str, where: str, *, kind: str, ndim: int, unit: str | None,
-             shape: tuple[int, ...] | None = None) -> h5py.Dataset:
-    """The dataset ``g[name]``, checked for presence, rank, dtype kind, shape and unit."""
+             shape: tuple[int, ...] | None = None, version: int = FORMAT_VERSION) -> h5py.Dataset:
+    """The dataset ``g[name]``, checked for presence, rank, dtype kind, shape and unit.
+
+    ``unit`` is the schema's spelling; files of older ``version`` may carry the old one.
+    """
     if name not in g:
         raise _Problem(where, "missing dataset")
     d = g[name]
@@ -180,9 +186,22 @@ def _dataset(g: h5py.Group, name: str, where: str, *, kind: str, ndim: int, unit
         raise _Problem(where, f"has shape {d.shape}, the rest of its group {shape}")
     if unit is not None:
         got = _text_attr(d, "unit", where)
-        if got != unit:
-            raise _Problem(f"{where} attribute unit", f"is {got!r}; the schema says {unit!r}")
+        allowed = accepted_units(unit, version)
+        if got not in allowed:
+            raise _Problem(f"{where} attribute unit", f"is {got!r}; the schema says "
+                           f"{' or '.join(map(repr, allowed))} (format version {version})")
     return d
+
+
+def _scale(g: h5py.Group, name: str, where: str, length: int, version: int) -> None:
+    """The index dimension scale ``name`` of a group: required from format 3 on, checked when present."""
+    if name not in g:
+        if version >= DIMENSIONS_SINCE_VERSION:
+            raise _Problem(f"{where}/{name}", "missing dimension scale")
+        return
+    d = _dataset(g, name, f"{where}/{name}", kind="iu", ndim=1, unit=None, shape=(length,))
+    if version >= DIMENSIONS_SINCE_VERSION and not d.is_scale:
+        raise _Problem(f"{where}/{name}", "needs to be an HDF5 dimension scale")
 
 
 def _kind_of(name: str) -> str:
@@ -249,36 +268,43 @@ def _check_eos_group(g, where: str, version: int) -> None:
             _number_attr(g, name, where)
     shape = None
     for name, unit in _star_datasets(version).items():
-        d = _dataset(g, name, f"{where}/{name}", kind=_kind_of(name), ndim=1, unit=unit, shape=shape)
+        d = _dataset(g, name, f"{where}/{name}", kind=_kind_of(name), ndim=1, unit=unit, shape=shape,
+                     version=version)
         shape = d.shape
     if shape == (0,):
         raise _Problem(f"{where}/central_density", "holds no stars")
+    _scale(g, "star", where, shape[0], version)
     for name, obj in g.items():
         sub = f"{where}/{name}"
         if isinstance(obj, h5py.Dataset):
-            if name not in STAR_DATASETS:  # read as a column too: it must line up with the stars
+            if name in DIMENSIONS:
+                if name != "star":
+                    raise _Problem(sub, f"a {name!r} dimension scale belongs to a subgroup")
+            elif name not in STAR_DATASETS:  # read as a column too: it must line up with the stars
                 _dataset(g, name, sub, kind="fiub", ndim=1, unit=None, shape=shape)
         elif name == "targets":
-            n = _subgroup_datasets(obj, sub, TARGET_DATASETS)
+            n = _subgroup_datasets(obj, sub, TARGET_DATASETS, "target", version)
             status = obj.attrs.get("status")
             if status is not None and (np.ndim(status) != 1 or len(status) != n
                                        or not all(isinstance(s, str | bytes) for s in status)):
                 raise _Problem(f"{sub} attribute status", f"needs {n} strings, one per target")
         elif name == "binaries":
-            _subgroup_datasets(obj, sub, BINARY_DATASETS)
+            _subgroup_datasets(obj, sub, BINARY_DATASETS, "binary", version)
         else:
             raise _Problem(sub, "unknown group (an EOS group holds only targets and binaries)")
 
 
-def _subgroup_datasets(g: h5py.Group, where: str, datasets: dict[str, str]) -> int:
+def _subgroup_datasets(g: h5py.Group, where: str, datasets: dict[str, str], dimension: str, version: int) -> int:
     """Check a ``targets`` / ``binaries`` subgroup: equal-length 1-D float datasets; return the length."""
     shape = None
     for name, unit in datasets.items():
-        shape = _dataset(g, name, f"{where}/{name}", kind="f", ndim=1, unit=unit, shape=shape).shape
+        shape = _dataset(g, name, f"{where}/{name}", kind="f", ndim=1, unit=unit, shape=shape,
+                         version=version).shape
+    _scale(g, dimension, where, shape[0], version)
     for name, obj in g.items():
         if not isinstance(obj, h5py.Dataset):
             raise _Problem(f"{where}/{name}", "unexpected group")
-        if name not in datasets:
+        if name not in datasets and name != dimension:
             _dataset(g, name, f"{where}/{name}", kind="fiub", ndim=1, unit=None, shape=shape)
     return shape[0]
 
@@ -310,11 +336,15 @@ def _check_ensemble_group(g, where: str, version: int) -> None:
         raise _Problem(f"{where}/sweep_values", "holds no central values")
     grid = (n_members, values.shape[0])
     for name, unit in _star_datasets(version).items():
-        _dataset(g, name, f"{where}/{name}", kind=_kind_of(name), ndim=2, unit=unit, shape=grid)
+        _dataset(g, name, f"{where}/{name}", kind=_kind_of(name), ndim=2, unit=unit, shape=grid, version=version)
     for name, unit in MEMBER_SUMMARIES.items():
-        _dataset(g, name, f"{where}/{name}", kind=_kind_of(name), ndim=1, unit=unit, shape=(n_members,))
+        _dataset(g, name, f"{where}/{name}", kind=_kind_of(name), ndim=1, unit=unit, shape=(n_members,),
+                 version=version)
+    _scale(g, "member", where, n_members, version)
+    _scale(g, "star", where, values.shape[0], version)
     for name, obj in g.items():
-        if name == "members" or name in STAR_DATASETS or name in MEMBER_SUMMARIES or name == "sweep_values":
+        if (name == "members" or name in STAR_DATASETS or name in MEMBER_SUMMARIES or name == "sweep_values"
+                or name in ("member", "star")):
             continue
         if not isinstance(obj, h5py.Dataset):
             raise _Problem(f"{where}/{name}", "unknown group (an ensemble holds only members)")

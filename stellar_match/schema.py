@@ -12,6 +12,18 @@ Format history
    that could not be computed to tolerance is NaN there, never a
    plausible-looking number.  Version-1 files are still read (they have
    neither dataset).
+3. Unit attributes in astropy's spelling, so that ``astropy.units.Unit``
+   parses every one and they match the exports: ``solMass`` (was ``Msun``),
+   ``g / cm3`` (``g/cm3``), ``dyn / cm2`` (``dyn/cm2``), ``cm / s2``
+   (``cm/s2``), ``g cm2`` (unchanged), ``km`` (unchanged) and ``""`` for
+   dimensionless (was ``1``); :data:`LEGACY_UNITS` maps them back, and files
+   of versions 1 and 2 are read with their old spellings.  HDF5 dimension
+   scales name every axis (:data:`DIMENSIONS`): a ``star`` index in every
+   ``/eos/<name>`` group, ``member`` and ``star`` in every ensemble,
+   ``target`` and ``binary`` in the subgroups, so h5py, netCDF readers and
+   xarray (engine ``h5netcdf``) see named dimensions.  Per-star datasets may
+   be gzip-compressed (``[output] compression``); HDF5 filters are
+   transparent to readers, so this needs no version of its own.
 """
 
 from __future__ import annotations
@@ -21,32 +33,33 @@ import numpy as np
 __all__ = [
     "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "STAR_DATASETS", "STAR_STATUS", "TARGET_DATASETS",
     "BINARY_DATASETS", "SUMMARY_ATTRIBUTES", "NOT_SOLVED", "MEMBER_SUMMARIES", "MEMBER_STATUS", "dataset_dtype",
-    "DATASET_SINCE_VERSION", "MAX_NAME_LENGTH", "group_name_problem", "PRIOR_WEIGHT",
+    "DATASET_SINCE_VERSION", "MAX_NAME_LENGTH", "group_name_problem", "DIMENSIONS", "LEGACY_UNITS",
+    "SWEEP_UNITS", "accepted_units", "DIMENSIONS_SINCE_VERSION", "MEMBER_PARAMETER_UNITS", "PRIOR_WEIGHT",
 ]
 
 FORMAT = "stellar_match.run"
-FORMAT_VERSION = 2
+FORMAT_VERSION = 3
 #: Format versions this software reads.
-READABLE_VERSIONS = (1, 2)
+READABLE_VERSIONS = (1, 2, 3)
 
 #: Per-star datasets of every ``/eos/<name>`` group: name -> (unit, meaning).
 STAR_DATASETS: dict[str, tuple[str, str]] = {
-    "central_density": ("g/cm3", "central rest-mass density (incompressible: energy density / c^2)"),
-    "central_energy_density": ("g/cm3", "central energy density / c^2"),
-    "central_pressure": ("dyn/cm2", "central pressure"),
-    "mass": ("Msun", "gravitational mass"),
+    "central_density": ("g / cm3", "central rest-mass density (incompressible: energy density / c^2)"),
+    "central_energy_density": ("g / cm3", "central energy density / c^2"),
+    "central_pressure": ("dyn / cm2", "central pressure"),
+    "mass": ("solMass", "gravitational mass"),
     "radius": ("km", "areal radius of the surface p = 0"),
-    "baryon_mass": ("Msun", "baryon (rest) mass"),
-    "compactness": ("1", "GM/(Rc^2)"),
-    "surface_redshift": ("1", "z = (1 - 2GM/(Rc^2))^(-1/2) - 1"),
-    "surface_gravity": ("cm/s2", "GM/(R^2 sqrt(1 - 2GM/(Rc^2)))"),
-    "love_number_k2": ("1", "quadrupolar tidal Love number k2 (Hinderer 2008)"),
-    "tidal_deformability": ("1", "dimensionless tidal deformability Lambda = (2/3) k2 (Rc^2/GM)^5"),
+    "baryon_mass": ("solMass", "baryon (rest) mass"),
+    "compactness": ("", "GM/(Rc^2)"),
+    "surface_redshift": ("", "z = (1 - 2GM/(Rc^2))^(-1/2) - 1"),
+    "surface_gravity": ("cm / s2", "GM/(R^2 sqrt(1 - 2GM/(Rc^2)))"),
+    "love_number_k2": ("", "quadrupolar tidal Love number k2 (Hinderer 2008)"),
+    "tidal_deformability": ("", "dimensionless tidal deformability Lambda = (2/3) k2 (Rc^2/GM)^5"),
     "moment_of_inertia": ("g cm2", "slow-rotation moment of inertia (Hartle 1967)"),
-    "binding_energy": ("Msun", "M_baryon - M"),
-    "error_estimate": ("1", "estimated relative integration error of M and R (embedded Dormand-Prince)"),
-    "star_status": ("1", "per-star quality code, 0 = within tolerance (meanings: attribute star_status_meaning)"),
-    "stable": ("1", "turning-point stability (dM/d rho_c > 0, up to the first maximum)"),
+    "binding_energy": ("solMass", "M_baryon - M"),
+    "error_estimate": ("", "estimated relative integration error of M and R (embedded Dormand-Prince)"),
+    "star_status": ("", "per-star quality code, 0 = within tolerance (meanings: attribute star_status_meaning)"),
+    "stable": ("", "turning-point stability (dM/d rho_c > 0, up to the first maximum)"),
 }
 #: Per-star status codes (dataset ``star_status``); every non-zero code comes with NaN physics columns.
 STAR_STATUS: dict[int, str] = {
@@ -60,39 +73,39 @@ STAR_STATUS: dict[int, str] = {
 NOT_SOLVED = 4
 #: Datasets of the ``targets`` subgroup (one entry per requested mass).
 TARGET_DATASETS: dict[str, str] = {
-    "requested_mass": "Msun",
-    "mass": "Msun",
+    "requested_mass": "solMass",
+    "mass": "solMass",
     "radius": "km",
-    "central_density": "g/cm3",
-    "surface_redshift": "1",
-    "tidal_deformability": "1",
+    "central_density": "g / cm3",
+    "surface_redshift": "",
+    "tidal_deformability": "",
     "moment_of_inertia": "g cm2",
 }
 #: Datasets of the ``binaries`` subgroup (one entry per requested pair).
 BINARY_DATASETS: dict[str, str] = {
-    "mass_1": "Msun",
-    "mass_2": "Msun",
-    "chirp_mass": "Msun",
-    "lambda_tilde": "1",
+    "mass_1": "solMass",
+    "mass_2": "solMass",
+    "chirp_mass": "solMass",
+    "lambda_tilde": "",
 }
 #: Per-EOS summary attributes and their units.
 SUMMARY_ATTRIBUTES: dict[str, str] = {
-    "causal": "1",
-    "max_sound_speed_squared": "c^2",
-    "max_mass": "Msun",
+    "causal": "",
+    "max_sound_speed_squared": "",  # c_s^2 / c^2
+    "max_mass": "solMass",
     "max_mass_radius": "km",
-    "max_mass_central_density": "g/cm3",
+    "max_mass_central_density": "g / cm3",
     "max_mass_status": "",
 }
 #: Per-member summaries of an ensemble: dataset name -> unit.
 MEMBER_SUMMARIES: dict[str, str] = {
-    "max_mass": "Msun",
+    "max_mass": "solMass",
     "max_mass_radius": "km",
-    "max_mass_central_density": "g/cm3",
+    "max_mass_central_density": "g / cm3",
     "radius_at_1.4": "km",
-    "tidal_deformability_at_1.4": "1",
-    "causal": "1",
-    "status": "1",
+    "tidal_deformability_at_1.4": "",
+    "causal": "",
+    "status": "",
 }
 #: Optional 1-D dataset of an ensemble: each member's prior weight (from a ``weight`` column of the
 #: members CSV; absent: every member weighs the same).
@@ -119,6 +132,50 @@ def dataset_dtype(name: str):
 #: Per-star datasets that are not in every readable version: name -> first
 #: format version that has it (all others are in every version).
 DATASET_SINCE_VERSION: dict[str, int] = {"error_estimate": 2, "star_status": 2}
+
+#: Units of the member parameters of ensembles (``/ensemble/<name>/members/<parameter>``),
+#: where they have one: log10_p1 is the log10 of a pressure in dyn/cm^2; the
+#: polytropic K (cgs) has a unit that depends on each member's gamma, and the
+#: gammas are dimensionless.  Not stored in the file (the datasets predate it).
+MEMBER_PARAMETER_UNITS: dict[str, str] = {"log10_p1": "dex(dyn / cm2)"}
+
+#: Units of an ensemble's ``sweep_values`` by sweep quantity.
+SWEEP_UNITS: dict[str, str] = {"central_density": "g / cm3", "central_pressure": "dyn / cm2"}
+
+#: The spelling of every unit in files of format versions 1 and 2 (new -> old).
+LEGACY_UNITS: dict[str, str] = {
+    "solMass": "Msun",
+    "g / cm3": "g/cm3",
+    "dyn / cm2": "dyn/cm2",
+    "cm / s2": "cm/s2",
+    "": "1",
+}
+
+
+def accepted_units(unit: str, version: int) -> tuple[str, ...]:
+    """The unit attribute strings a file of format ``version`` may carry for ``unit``.
+
+    Version 3 writes astropy's spelling only.  Files of versions 1 and 2 carry
+    the old spelling; the new one is accepted there too, since a file is
+    sometimes relabelled by hand (and tests downgrade new files that way).
+    """
+    if version >= 3:
+        return (unit,)
+    old = LEGACY_UNITS.get(unit, unit)
+    return (old, unit) if old != unit else (unit,)
+
+
+#: Names of the HDF5 dimension scales (index datasets 0, 1, ... n-1) and what they count.
+#: ``star``: the stars of an ``/eos/<name>`` group and the central values of an ensemble;
+#: ``member``: the members of an ensemble; ``target``, ``binary``: the rows of the subgroups.
+DIMENSIONS: dict[str, str] = {
+    "star": "index of the star in sweep order",
+    "member": "index of the ensemble member",
+    "target": "index of the requested mass",
+    "binary": "index of the requested pair",
+}
+#: Dimension scales are written from this format version on (and required in its files).
+DIMENSIONS_SINCE_VERSION = 3
 
 #: Longest EOS or ensemble name: it is a label in tables and figure legends.
 MAX_NAME_LENGTH = 200

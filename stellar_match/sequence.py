@@ -31,6 +31,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import units
+
 __all__ = [
     "SequenceAnalysis", "analyse_sequence", "refine_maxima", "value_on_stable_branch", "EOSSequence",
     "chirp_mass", "lambda_tilde",
@@ -330,6 +332,51 @@ class EOSSequence:
     def stable(self) -> np.ndarray:
         return np.asarray(self.columns["stable"], dtype=bool)
 
+    def to_table(self, group: str | None = None):
+        """The stars (or a subgroup) as an ``astropy.table.QTable`` with units.
+
+        Parameters
+        ----------
+        group : {None, "targets", "binaries"}
+            None: one row per star of the sweep, the run-file columns with
+            their units (``mass`` in solMass, ``radius`` in km, ...); the
+            summary (``max_mass`` ... as Quantities) and the EOS parameters are
+            in ``meta``.  "targets": one row per requested mass, with the
+            per-target ``status``.  "binaries": one row per pair.
+
+        Returns
+        -------
+        astropy.table.QTable
+
+        Raises
+        ------
+        KeyError
+            For a subgroup this sequence does not have.
+        """
+        import astropy.units as au
+
+        from .schema import BINARY_DATASETS, STAR_DATASETS, SUMMARY_ATTRIBUTES, TARGET_DATASETS
+
+        meta = {"name": self.name, "kind": self.kind, "parameters": self.parameters}
+        if group is None:
+            summary = {k: (v * au.Unit(SUMMARY_ATTRIBUTES[k]) if SUMMARY_ATTRIBUTES.get(k)
+                           and isinstance(v, float | int) and not isinstance(v, bool) else v)
+                       for k, v in self.summary.items()}
+            unit_of = {k: unit for k, (unit, _) in STAR_DATASETS.items()}
+            text_of = {k: text for k, (_, text) in STAR_DATASETS.items()}
+            return units.quantity_table(self.columns, unit_of, descriptions=text_of,
+                                        meta=meta | {"summary": summary})
+        if group not in (self.groups or {}):
+            raise KeyError(f"EOS {self.name!r} has no {group!r} subgroup (it has: {', '.join(self.groups or {})})")
+        data = dict(self.groups[group])
+        attrs = data.pop("attrs", {})
+        unit_of = {"targets": TARGET_DATASETS, "binaries": BINARY_DATASETS}.get(group, {})
+        columns = dict(data)
+        status = attrs.get("status")
+        if status is not None and np.ndim(status) == 1 and len(status) == len(next(iter(columns.values()))):
+            columns["status"] = np.array([s.decode() if isinstance(s, bytes) else str(s) for s in status])
+        return units.quantity_table(columns, unit_of, meta=meta | {"group": group})
+
 
 def value_on_stable_branch(mass, values, stable, target: float, *, cubic: bool = False) -> float:
     """``values`` at gravitational mass ``target`` by interpolation along the stable stars.
@@ -359,13 +406,15 @@ def value_on_stable_branch(mass, values, stable, target: float, *, cubic: bool =
 
 
 def interpolate_on_stable_branch(seq: EOSSequence, mass: float, column: str) -> float:
-    """Value of ``column`` of a sequence at ``mass`` (Msun), linear along the stable branch."""
+    """Value of ``column`` of a sequence at ``mass`` (Msun or a mass Quantity), linear along the stable branch."""
+    mass = float(units.to_unit(mass, units.MASS_UNIT, name="mass"))
     return value_on_stable_branch(seq["mass"], seq[column], seq.stable, mass)
 
 
 def chirp_mass(m1, m2):
-    """Chirp mass (m1 m2)^(3/5) / (m1 + m2)^(1/5), same unit as the inputs."""
-    m1, m2 = np.asarray(m1, dtype=float), np.asarray(m2, dtype=float)
+    """Chirp mass (m1 m2)^(3/5) / (m1 + m2)^(1/5), same unit as plain inputs (Quantities: in Msun)."""
+    m1 = np.asarray(units.to_unit(m1, units.MASS_UNIT, name="m1"), dtype=float)
+    m2 = np.asarray(units.to_unit(m2, units.MASS_UNIT, name="m2"), dtype=float)
     return (m1 * m2) ** 0.6 / (m1 + m2) ** 0.2
 
 
@@ -373,8 +422,10 @@ def lambda_tilde(m1, m2, lambda1, lambda2):
     """Binary tidal deformability of a pair (Flanagan & Hinderer 2008; Favata 2014, eq. 5).
 
     Lambda_tilde = (16/13) [(m1 + 12 m2) m1^4 L1 + (m2 + 12 m1) m2^4 L2] / (m1 + m2)^5;
-    equal to Lambda for two identical stars.
+    equal to Lambda for two identical stars.  The masses may be in any one
+    unit, or Quantities.
     """
-    m1, m2 = np.asarray(m1, dtype=float), np.asarray(m2, dtype=float)
+    m1 = np.asarray(units.to_unit(m1, units.MASS_UNIT, name="m1"), dtype=float)
+    m2 = np.asarray(units.to_unit(m2, units.MASS_UNIT, name="m2"), dtype=float)
     l1, l2 = np.asarray(lambda1, dtype=float), np.asarray(lambda2, dtype=float)
     return 16.0 / 13.0 * ((m1 + 12 * m2) * m1**4 * l1 + (m2 + 12 * m1) * m2**4 * l2) / (m1 + m2) ** 5

@@ -23,7 +23,7 @@ from .eos import EquationOfState, central_enthalpy
 from .errors import ConfigError, InputError, RunFileError, StorageError
 from .exterior import star_columns
 from .runfile import RunFileWriter
-from .schema import STAR_DATASETS, TARGET_DATASETS
+from .schema import BINARY_DATASETS, STAR_DATASETS, TARGET_DATASETS
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 
@@ -79,9 +79,10 @@ def solve_stars(
     Parameters
     ----------
     eos : EquationOfState
-    central_density : array_like, optional
-        Central rest-mass densities in g/cm^3.
-    central_pressure : array_like, optional
+    central_density : array_like or Quantity, optional
+        Central rest-mass densities in g/cm^3 (Quantities: any mass density,
+        or a baryon number density, times the neutron mass).
+    central_pressure : array_like or Quantity, optional
         Central pressures in dyn/cm^2 (give exactly one of the two).
     control : StepControl, optional
         Solver accuracy knobs.
@@ -96,7 +97,8 @@ def solve_stars(
         raise InputError("give exactly one of central_density or central_pressure")
     quantity = "central_density" if central_density is not None else "central_pressure"
     values = central_density if central_density is not None else central_pressure
-    h = central_enthalpy(eos, quantity, np.atleast_1d(values))
+    unit = units.DENSITY_UNIT if quantity == "central_density" else units.PRESSURE_UNIT
+    h = central_enthalpy(eos, quantity, np.atleast_1d(units.to_unit(values, unit, name=quantity)))
     return star_columns(solve_interiors(eos, h, control=control))
 
 
@@ -119,8 +121,8 @@ def sweep_eos(
     eos : EquationOfState
     quantity : {"central_density", "central_pressure"}
         The sweep axis (g/cm^3 or dyn/cm^2).
-    values : array_like
-        Central values in sweep order.
+    values : array_like or Quantity
+        Central values in sweep order (Quantities in any unit of the axis).
     control : StepControl, optional
         Solver accuracy knobs.
     chunk_size : int, optional
@@ -129,10 +131,10 @@ def sweep_eos(
         Where results go; default in memory.
     progress : callable, optional
         Called with the number of stars finished after every chunk.
-    target_masses : sequence of float, optional
+    target_masses : sequence of float or Quantity, optional
         Masses (Msun) at which to solve stable-branch stars exactly; stored
         in the ``targets`` subgroup.
-    binaries : sequence of (m1, m2), optional
+    binaries : sequence of (m1, m2) or Quantity, optional
         Component masses (Msun) for which to compute chirp mass and
         Lambda-tilde; stored in the ``binaries`` subgroup.
 
@@ -144,6 +146,8 @@ def sweep_eos(
     memory = sink is None
     sink = MemorySink() if memory else sink
     h_all = central_enthalpy(eos, quantity, values)
+    target_masses = np.ravel(units.to_unit(target_masses, units.MASS_UNIT, name="target_masses"))
+    binaries = np.reshape(units.to_unit(binaries, units.MASS_UNIT, name="binaries"), (-1, 2))
 
     def chunks():
         for start in range(0, h_all.size, chunk_size):
@@ -232,7 +236,7 @@ def _targets_group(eos, seq: EOSSequence, masses, control) -> dict:
               else "not computed to tolerance within the step budget" if np.isfinite(code) and code != 0
               else _why_missing(seq, t)
               for t, m, code in zip(masses, stars["mass"], stars["star_status"], strict=True)]
-    data = {"requested_mass": (masses, "Msun")}
+    data = {"requested_mass": (masses, TARGET_DATASETS["requested_mass"])}
     for k, unit in TARGET_DATASETS.items():
         if k != "requested_mass":
             data[k] = (stars[k], unit)
@@ -247,10 +251,10 @@ def _binaries_group(eos, seq: EOSSequence, pairs, control) -> dict:
     l1 = np.array([lam[m] for m in pairs[:, 0]])
     l2 = np.array([lam[m] for m in pairs[:, 1]])
     return {"attrs": {}, "data": {
-        "mass_1": (pairs[:, 0], "Msun"),
-        "mass_2": (pairs[:, 1], "Msun"),
-        "chirp_mass": (chirp_mass(pairs[:, 0], pairs[:, 1]), "Msun"),
-        "lambda_tilde": (lambda_tilde(pairs[:, 0], pairs[:, 1], l1, l2), "1"),
+        "mass_1": (pairs[:, 0], BINARY_DATASETS["mass_1"]),
+        "mass_2": (pairs[:, 1], BINARY_DATASETS["mass_2"]),
+        "chirp_mass": (chirp_mass(pairs[:, 0], pairs[:, 1]), BINARY_DATASETS["chirp_mass"]),
+        "lambda_tilde": (lambda_tilde(pairs[:, 0], pairs[:, 1], l1, l2), BINARY_DATASETS["lambda_tilde"]),
     }}
 
 
@@ -426,7 +430,7 @@ def _prepare_parts(store, out: Path, *, force: bool, resume: bool) -> None:
 def _assemble(config: SweepConfig, built, tasks, store, out: Path) -> Path:
     """Write the run file from the parts: complete under its final name, or not there at all."""
     control = config.solver.control()
-    writer = RunFileWriter(out, config_text=config.text, force=True)
+    writer = RunFileWriter(out, config_text=config.text, force=True, **config.output.writer_options())
     try:
         for eos, spec in zip(built, config.eos, strict=True):
             h_all = central_enthalpy(eos, config.axis.quantity, config.axis.values)
@@ -536,7 +540,7 @@ def stars_at_masses(
         The EOS of ``seq`` (see :func:`eos_from_sequence`).
     seq : EOSSequence
         Its sweep, whose ``stable`` flags and samples give the brackets.
-    masses : array_like
+    masses : array_like or Quantity
         Gravitational masses in Msun.
     control : StepControl, optional
         Solver accuracy knobs (use the run's, for stars consistent with it).
@@ -553,7 +557,7 @@ def stars_at_masses(
     """
     axis = "central_pressure" if seq.kind == "incompressible" else "central_density"
     x, m = _stable_branch(seq, axis)
-    targets = np.atleast_1d(np.asarray(masses, dtype=float))
+    targets = np.atleast_1d(np.asarray(units.to_unit(masses, units.MASS_UNIT, name="masses"), dtype=float))
     names = [k for k in STAR_DATASETS if k != "stable"]
     out = {k: np.full(targets.size, np.nan) for k in names}
     if x.size < 2:

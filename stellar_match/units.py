@@ -11,6 +11,10 @@ Each constant names its source, following the habit of ``astropy.constants``.
 
 from __future__ import annotations
 
+import numpy as np
+
+from .errors import InputError
+
 # --- Fundamental constants -------------------------------------------------
 #: Speed of light in vacuum, m/s.  Exact (SI 2019 definition).
 SPEED_OF_LIGHT_SI = 299_792_458.0
@@ -55,8 +59,11 @@ MOMENT_OF_INERTIA_GEOM_TO_CGS = (SOLAR_MASS_G / SOLAR_MASS_KM) * 1e10
 
 
 def density_to_geometric(rho_g_cm3):
-    """Convert a rest-mass density (or energy density / c^2) from g/cm^3 to km^-2."""
-    return rho_g_cm3 * DENSITY_CGS_TO_GEOM
+    """Convert a rest-mass density (or energy density / c^2) from g/cm^3 to km^-2.
+
+    A Quantity (e.g. kg/m^3, or an energy density in MeV/fm^3) is converted first, see :func:`to_unit`.
+    """
+    return to_unit(rho_g_cm3, DENSITY_UNIT, name="density") * DENSITY_CGS_TO_GEOM
 
 
 def density_from_geometric(rho_geom):
@@ -65,8 +72,8 @@ def density_from_geometric(rho_geom):
 
 
 def pressure_to_geometric(p_dyn_cm2):
-    """Convert a pressure (or energy density in erg/cm^3) from dyn/cm^2 to km^-2."""
-    return p_dyn_cm2 * PRESSURE_CGS_TO_GEOM
+    """Convert a pressure (or energy density in erg/cm^3) from dyn/cm^2 to km^-2 (Quantities: any pressure unit)."""
+    return to_unit(p_dyn_cm2, PRESSURE_UNIT, name="pressure") * PRESSURE_CGS_TO_GEOM
 
 
 def pressure_from_geometric(p_geom):
@@ -75,8 +82,8 @@ def pressure_from_geometric(p_geom):
 
 
 def mass_to_geometric(mass_msun):
-    """Convert a mass from solar masses to km (G M / c^2)."""
-    return mass_msun * SOLAR_MASS_KM
+    """Convert a mass from solar masses to km (G M / c^2) (Quantities: any mass unit)."""
+    return to_unit(mass_msun, MASS_UNIT, name="mass") * SOLAR_MASS_KM
 
 
 def mass_from_geometric(mass_km):
@@ -101,3 +108,156 @@ BARYON_DENSITY_UNITS = {"fm-3": 1e39, "cm-3": 1.0}
 #: Units accepted for rest-mass density, as factors to g/cm^3.
 REST_MASS_DENSITY_UNITS = {"g/cm3": 1.0}
 
+
+
+# --- astropy Quantities at the edges -----------------------------------------
+# Public functions take plain numbers in their documented units, or astropy
+# Quantities in any unit of the same dimension.  Quantities are converted here
+# and only here, once, at the entry of a public function: the solver itself
+# only ever sees plain float arrays and the factors above.
+
+#: Documented units of the API and the run files, in astropy's spelling
+#: (``astropy.units.Unit`` parses each; "" is dimensionless).
+MASS_UNIT = "solMass"
+LENGTH_UNIT = "km"
+DENSITY_UNIT = "g / cm3"
+PRESSURE_UNIT = "dyn / cm2"
+ACCELERATION_UNIT = "cm / s2"
+LOG_ACCELERATION_UNIT = "dex(cm / s2)"
+LOG_PRESSURE_UNIT = "dex(dyn / cm2)"
+MOMENT_OF_INERTIA_UNIT = "g cm2"
+VELOCITY_UNIT = "km / s"
+DIMENSIONLESS = ""
+
+#: Speed of light in km/s (exact), for redshifts given as velocities c z.
+SPEED_OF_LIGHT_KM_S = SPEED_OF_LIGHT_SI / 1e3
+
+
+def _astropy_units():
+    """astropy.units if a Quantity can exist at all (it is imported), else None.
+
+    A Quantity cannot exist before ``astropy.units`` is imported, so plain
+    numbers never pay for the import or for an isinstance check against it.
+    """
+    import sys
+
+    return sys.modules.get("astropy.units")
+
+
+def is_quantity(value) -> bool:
+    """True for an astropy Quantity or a list/tuple holding one."""
+    au = _astropy_units()
+    if au is None:
+        return False
+    if isinstance(value, au.Quantity):
+        return True
+    return isinstance(value, list | tuple) and any(isinstance(v, au.Quantity) for v in value)
+
+
+def _equivalencies(unit: str, au) -> list:
+    """Conversions between dimensions that the documented units imply.
+
+    * An energy density (erg/cm^3, MeV/fm^3) stands for a density eps/c^2
+      wherever the documented unit is g/cm^3 (energy densities, and the
+      incompressible EOS), with the exact c of this module.
+    * A baryon number density (1/cm^3, 1/fm^3) stands for a rest-mass density
+      rho = m_n n, with the CODATA 2018 neutron mass, as for tables.
+    """
+    if unit != DENSITY_UNIT:
+        return []
+    c2 = _C_CGS**2
+    return [
+        (au.g / au.cm**3, au.erg / au.cm**3, lambda x: x * c2, lambda x: x / c2),
+        (au.g / au.cm**3, au.cm**-3, lambda x: x / NEUTRON_MASS_G, lambda x: x * NEUTRON_MASS_G),
+    ]
+
+
+def to_unit(value, unit, *, name: str):
+    """A number or an astropy Quantity as plain number(s) in the documented ``unit``.
+
+    Parameters
+    ----------
+    value : float, array_like or astropy.units.Quantity
+        Plain numbers are returned unchanged: they are taken to be in
+        ``unit`` already, as every public function documents.  A Quantity
+        (or a list of Quantities) is converted to ``unit``.
+    unit : str or astropy unit
+        The documented unit in astropy's spelling, e.g. ``"solMass"``,
+        ``"g / cm3"`` or ``"dex(cm / s2)"``; ``""`` for dimensionless.
+        Densities in g/cm^3 also take energy densities (divided by c^2) and
+        baryon number densities (times the neutron mass).
+    name : str
+        The argument's name, for the error message.
+
+    Returns
+    -------
+    float or ndarray
+        The value in ``unit`` (a scalar Quantity gives a float).
+
+    Raises
+    ------
+    InputError
+        One line naming ``name``, when the Quantity's dimension does not fit
+        ``unit`` (or a list mixes Quantities with plain numbers).
+    """
+    if not is_quantity(value):
+        return value
+    au = _astropy_units()
+    target = au.Unit(unit) if isinstance(unit, str) else unit
+    spelled = unit if isinstance(unit, str) else target.to_string()
+    try:
+        q = value if isinstance(value, au.Quantity) else au.Quantity(value)
+    except (TypeError, ValueError, au.UnitsError):
+        raise InputError(f"needs numbers in {spelled or 'dimensionless units'} or Quantities of one "
+                         f"dimension, not a list mixing them", key=name) from None
+    try:
+        out = q.to_value(target, equivalencies=_equivalencies(spelled, au))
+    except au.UnitsError:
+        want = f"{spelled!r} ({target.physical_type})" if spelled else "a dimensionless number"
+        got = q.unit.to_string() or "dimensionless"
+        raise InputError(f"needs a Quantity convertible to {want}, got one in {got!r}", key=name) from None
+    return float(out) if np.ndim(out) == 0 else np.asarray(out, dtype=float)
+
+
+def polytropic_constant_to_cgs(K, gamma: float):
+    """K of p = K rho^Gamma in cgs (p in dyn/cm^2, rho in g/cm^3); a Quantity is converted.
+
+    The unit of K depends on Gamma, dyn cm^-2 (g cm^-3)^-Gamma, so it is
+    built for the given (plain) ``gamma``.
+    """
+    if not is_quantity(K):
+        return K
+    au = _astropy_units()
+    return to_unit(K, au.dyn / au.cm**2 / (au.g / au.cm**3) ** float(gamma), name="K")
+
+
+def quantity_table(columns: dict, unit_of: dict, *, descriptions: dict | None = None, meta: dict | None = None):
+    """An ``astropy.table.QTable`` of equal-length columns, with their documented units attached.
+
+    Parameters
+    ----------
+    columns : dict of str -> array_like
+        Columns in order.
+    unit_of : dict of str -> str
+        Unit (astropy spelling) of each column; "" or absent: dimensionless,
+        text, flag or code, kept as a plain column.
+    descriptions : dict of str -> str, optional
+        One line per column.
+    meta : dict, optional
+        Table metadata.
+    """
+    import astropy.units as au
+    from astropy.table import Column, QTable
+
+    table = QTable(meta=dict(meta or {}))
+    for name, values in columns.items():
+        values = np.asarray(values)
+        unit = unit_of.get(name, "")
+        text = (descriptions or {}).get(name)
+        if unit and values.dtype.kind in "fiu":
+            table[name] = values.astype(float) * au.Unit(unit)  # a product: dex units give a Dex quantity
+            if text:
+                table[name].info.description = text
+        else:
+            table[name] = Column(values, description=text)
+    return table

@@ -2,7 +2,10 @@
 
 from __future__ import annotations
 
+import csv
+import io
 import shutil
+import urllib.parse
 
 import h5py
 import numpy as np
@@ -33,8 +36,33 @@ pressure = { column = "p", unit = "MeV/fm3" }
 energy_density = { column = "e", unit = "MeV/fm3" }
 baryon_density = { column = "nb", unit = "fm-3" }
 """
+#: An EOS name with every character plain CSV readers stumble on (issue 13): comma, quote, hash, percent.
+COMMA_NAME = 'pp "a,b" #1 50%'
+COMMA_BLOCK = f"""\
+[[eos]]
+name = '{COMMA_NAME}'
+kind = "polytrope"
+K = 1.0e5
+gamma = 2.0
+"""
 #: 30 stars per EOS: small but spanning the maximum of both.
-CONFIG = "[sweep]\ncentral_density = { min = 2.5e14, max = 3e15, count = 30 }\n\n" + SLY_BLOCK + "\n" + TABLE_BLOCK
+CONFIG = ("[sweep]\ncentral_density = { min = 2.5e14, max = 3e15, count = 30 }\n\n" + SLY_BLOCK + "\n" + TABLE_BLOCK
+          + "\n" + COMMA_BLOCK)
+ENSEMBLE_CONFIG = """\
+[sweep]
+central_density = { min = 2.5e14, max = 3e15, count = 8 }
+
+[[ensemble]]
+name = "prior"
+kind = "piecewise_polytrope"
+[ensemble.sample]
+count = 4
+seed = 3
+log10_p1 = [34.2, 34.6]
+gamma1 = [2.5, 3.5]
+gamma2 = [2.5, 3.5]
+gamma3 = [2.5, 3.5]
+"""
 
 
 @pytest.fixture(scope="module")
@@ -57,57 +85,196 @@ def exterior_z_and_g(mass_msun, radius_km):
     return 1.0 / lapse - 1.0, m / (r**2 * lapse) * units.ACCELERATION_GEOM_TO_CGS
 
 
-def test_ecsv_reads_back_with_astropy_units_and_values(tiny_run, tmp_path):
+#: The units each export column must carry, as astropy spells them (issue 13; astropy.units.Unit parses each).
+EXPECTED_UNITS = {"central_density": "g / cm3", "mass": "solMass", "radius": "km", "baryon_mass": "solMass",
+                  "surface_gravity": "cm / s2", "log10_surface_gravity": "dex(cm / s2)", "radiation_radius": "km",
+                  "redshift_velocity": "km / s", "moment_of_inertia": "g cm2"}
+#: Columns without a unit: dimensionless numbers, flags, codes and text.
+UNITLESS = ("eos", "compactness", "surface_redshift", "love_number_k2", "tidal_deformability", "stable",
+            "star_status")
+#: Run-file columns an export copies bit for bit.
+COPIED = ("central_density", "mass", "radius", "baryon_mass", "compactness", "surface_redshift", "surface_gravity",
+          "love_number_k2", "tidal_deformability", "moment_of_inertia")
+
+
+def selected_stars(run, name):
+    """The stars an export keeps by default: stable and computed within tolerance (issue 13)."""
+    seq = run.eos[name]
+    keep = seq.stable & (np.asarray(seq["star_status"]) == 0)
+    return {k: np.asarray(seq[k])[keep] for k in COPIED}
+
+
+def read_back(path, fmt):
+    """The table read by astropy.table.Table.read alone (the reference reader, not the product's)."""
     table_mod = pytest.importorskip("astropy.table")
+    if fmt == "csv":  # plain CSV carries no units: the documented ones are passed to the reader
+        header = path.read_text().splitlines()[0].split(",")
+        return table_mod.Table.read(path, format="ascii.csv",
+                                    units={k: v for k, v in EXPECTED_UNITS.items() if k in header})
+    if fmt == "h5":
+        return table_mod.Table.read(path, path="table", character_as_bytes=False)
+    return table_mod.Table.read(path, format="ascii.ecsv")
+
+
+@pytest.mark.parametrize("fmt", ["ecsv", "csv", "h5"])
+def test_every_format_reads_back_with_astropy_units_and_values(tiny_run, tmp_path, fmt):
     u = pytest.importorskip("astropy.units")
     run = read_run(tiny_run)
-    path = write_table(redshift_table(select_sequences([run])), tmp_path / "z.ecsv")
-    t = table_mod.Table.read(path, format="ascii.ecsv")
-    # units as astropy parses them (APE 6: the ECSV header carries astropy unit strings)
-    expected = {"central_density": "g / cm3", "mass": "solMass", "radius": "km", "surface_gravity": "cm / s2",
-                "apparent_radius": "km"}
-    for col, unit in expected.items():
+    path = write_table(redshift_table(select_sequences([run])), tmp_path / f"z.{fmt}")
+    t = read_back(path, fmt)
+    for col, unit in EXPECTED_UNITS.items():
         assert t[col].unit == u.Unit(unit), col
-    assert t["compactness"].unit is None and t["surface_redshift"].unit is None
-    assert str(t["log10_surface_gravity"].unit) == "dex(cm / s2)"
-    # values equal to the run file's, to the last bit (repr round-trips float64)
-    for name, seq in run.eos.items():
-        rows = t[t["eos"] == name]
-        for col in ("central_density", "mass", "radius", "compactness", "surface_redshift", "surface_gravity"):
-            np.testing.assert_array_equal(np.asarray(rows[col]), np.asarray(seq[col]), err_msg=col)
-    assert len(t) == sum(len(s["mass"]) for s in run.eos.values())
+    for col in UNITLESS:
+        assert t[col].unit is None, col
+    names = [urllib.parse.unquote(str(n)) for n in t["eos"]] if fmt == "csv" else [str(n) for n in t["eos"]]
+    assert set(names) == set(run.eos) and COMMA_NAME in names
+    for name in run.eos:
+        rows = np.array(names) == name
+        want = selected_stars(run, name)
+        for col, values in want.items():  # repr of a float64 round-trips, so the values are the run's, bit for bit
+            np.testing.assert_array_equal(np.asarray(t[col][rows], dtype=float), values, err_msg=(fmt, name, col))
+        assert np.all(np.asarray(t["stable"][rows]) == (True if fmt != "csv" else "True"))
+        assert np.all(np.asarray(t["star_status"][rows]) == 0)
+    assert len(t) == sum(len(selected_stars(run, n)["mass"]) for n in run.eos)
 
 
-def test_csv_reads_back_with_numpy_and_exterior_formulas_hold(tiny_run, tmp_path):
+def test_csv_reads_with_pandas_and_numpy_defaults(tiny_run, tmp_path):
     run = read_run(tiny_run)
-    path = write_table(redshift_table(select_sequences([run]), stable_only=True), tmp_path / "z.csv")
-    lines = path.read_text().splitlines()
-    assert lines[1].startswith("# units: ,g / cm3,solMass,km,")
+    path = write_table(redshift_table(select_sequences([run])), tmp_path / "z.csv")
+    text = path.read_text()
+    assert not any(line.startswith("#") for line in text.splitlines())  # no comment or unit lines
+    rows = list(csv.reader(io.StringIO(text)))  # the csv module: every row as wide as the header
+    assert {len(r) for r in rows} == {len(rows[0])}
     a = np.genfromtxt(path, delimiter=",", names=True, dtype=None, encoding="utf-8")
-    assert len(a) == sum(int(s.stable.sum()) for s in run.eos.values())
+    names = [urllib.parse.unquote(str(n)) for n in a["eos"]]
+    assert COMMA_NAME in names  # a name with , # % " survives numpy's reader (percent-encoded)
+    pd = pytest.importorskip("pandas")
+    frame = pd.read_csv(path)
+    assert list(frame.columns) == list(a.dtype.names) == rows[0]
+    assert frame["stable"].dtype == bool and a["stable"].dtype == bool
+    for name in run.eos:
+        want = selected_stars(run, name)
+        sel = np.array(names) == name
+        for col, values in want.items():
+            np.testing.assert_array_equal(a[col][sel], values, err_msg=col)
+            np.testing.assert_array_equal(frame[col].to_numpy()[sel], values, err_msg=col)
+    assert [urllib.parse.unquote(n) for n in frame["eos"]] == names
+
+
+def test_csv_columns_obey_the_exterior_formulas(tiny_run, tmp_path):
+    run = read_run(tiny_run)
+    path = write_table(redshift_table(select_sequences([run])), tmp_path / "z.csv")
+    a = np.genfromtxt(path, delimiter=",", names=True, dtype=None, encoding="utf-8")
     z, g = exterior_z_and_g(a["mass"], a["radius"])
     # tolerance: the run file's z, g come from geometric-unit arithmetic; 1e-12 covers rounding only
     np.testing.assert_allclose(a["surface_redshift"], z, rtol=1e-12)
     np.testing.assert_allclose(a["surface_gravity"], g, rtol=1e-12)
     np.testing.assert_allclose(a["log10_surface_gravity"], np.log10(g), rtol=1e-13)
-    # apparent radius R_inf = R (1 + z) (e.g. Lattimer & Prakash 2007, radiation radius)
-    np.testing.assert_allclose(a["apparent_radius"], a["radius"] * (1 + z), rtol=1e-12)
-    assert np.all(np.isin(a["eos"], ["sly", "medium"]))
+    # radiation radius R_inf = R (1 + z) (e.g. Lattimer & Prakash 2007, Phys. Rep. 442, 109)
+    np.testing.assert_allclose(a["radiation_radius"], a["radius"] * (1 + z), rtol=1e-12)
+    # c z in km/s with c from astropy's CODATA 2018
+    from astropy.constants import codata2018
+
+    np.testing.assert_allclose(a["redshift_velocity"], codata2018.c.to("km/s").value * z, rtol=1e-12)
 
 
-def test_hdf5_table_has_units(tiny_run, tmp_path):
+def test_hdf5_table_is_plain_h5py_too(tiny_run, tmp_path):
     run = read_run(tiny_run)
     path = write_table(redshift_table(select_sequences([run], ["sly"])), tmp_path / "z.h5")
-    with h5py.File(path, "r") as f:
-        assert f["mass"].attrs["unit"] == "solMass"
-        assert f["surface_gravity"].attrs["unit"] == "cm / s2"
-        np.testing.assert_array_equal(f["radius"][()], run.eos["sly"]["radius"])
-        assert {x.decode() for x in f["eos"][()]} == {"sly"}
+    with h5py.File(path, "r") as f:  # astropy's layout: one compound dataset, a field per column
+        np.testing.assert_array_equal(f["table"]["radius"], selected_stars(run, "sly")["radius"])
+        assert {x.decode() for x in f["table"]["eos"]} == {"sly"}
+
+
+def test_unstable_and_nan_stars_are_left_out_by_default(tiny_run):
+    run = read_run(tiny_run)
+    sequences = select_sequences([run])
+    default = redshift_table(sequences)
+    everything = redshift_table(sequences, keep_unstable=True)
+    assert len(everything) == sum(len(s["mass"]) for s in run.eos.values())
+    assert len(default) < len(everything)  # the sweep passes the maximum mass: unstable stars exist
+    assert default.columns["stable"].all() and not everything.columns["stable"].all()
+    assert np.all(default.columns["star_status"] == 0)
+
+
+def test_empty_export_is_one_error_line_and_no_file(tmp_path, run_cli):
+    # Read et al. 2009: SLy's maximum is near 2.9e15 g/cm^3 (Table III M_max 2.049), so these stars are unstable
+    cfg = tmp_path / "past.toml"
+    cfg.write_text("[sweep]\ncentral_density = { values = [5e15, 6e15, 7e15] }\n\n" + SLY_BLOCK)
+    run = run_config(cfg, tmp_path / "past.h5")
+    out = tmp_path / "z.csv"
+    code, _, err = run_cli("redshift", run, "-o", out)
+    assert code == 2 and "no star to export" in assert_one_error_line(err) and "--keep-unstable" in err
+    assert not out.exists()
+    code, stdout, err = run_cli("redshift", run, "-o", out, "--keep-unstable")
+    assert code == 0, err
+    assert "(3 rows)" in stdout
+
+
+def test_qtable_of_an_export_has_quantities(tiny_run):
+    u = pytest.importorskip("astropy.units")
+    q = redshift_table(select_sequences([read_run(tiny_run)])).to_table()
+    assert q["mass"].unit == u.solMass and isinstance(q["radius"], u.Quantity)
+    # astropy converts: 1 Msun in kg is IAU 2015's nominal mass (astropy.constants.iau2015)
+    from astropy.constants import iau2015
+
+    np.testing.assert_allclose(q["mass"].to(u.kg).value, np.asarray(q["mass"].value) * iau2015.M_sun.value,
+                               rtol=1e-15)
+
+
+def test_read_table_gives_every_format_with_units(tiny_run, tmp_path):
+    from stellar_match.exports import read_table
+
+    table = redshift_table(select_sequences([read_run(tiny_run)]))
+    for fmt in ("ecsv", "csv", "h5"):
+        q = read_table(write_table(table, tmp_path / f"z.{fmt}"))
+        assert list(q.colnames) == list(table.columns), fmt
+        assert str(q["mass"].unit) == "solMass" and q["stable"].dtype == bool, fmt
+        assert list(q["eos"]) == list(table.columns["eos"]), fmt
+
+
+@pytest.fixture(scope="module")
+def ensemble_run(tmp_path_factory):
+    """An ensemble-only run file: 4 sampled members x 8 central densities."""
+    folder = tmp_path_factory.mktemp("ens_export")
+    (folder / "e.toml").write_text(ENSEMBLE_CONFIG)
+    return run_config(folder / "e.toml", folder / "e.h5")
+
+
+def test_ensemble_only_run_exports_member_stars(ensemble_run, tmp_path, run_cli):
+    out = tmp_path / "e.ecsv"
+    code, stdout, err = run_cli("redshift", ensemble_run, "-o", out, "--members", "1:3")
+    assert code == 0, err
+    t = read_back(out, "ecsv")
+    run = read_run(ensemble_run)
+    assert set(t["member"]) <= {1, 2} and set(t["eos"]) == {"prior"}
+    assert str(t["mass"].unit) == "solMass" and str(t["log10_p1"].unit) == "dex(dyn / cm2)"
+    mass = run.ensemble_dataset("prior", "mass")
+    stable = run.ensemble_dataset("prior", "stable") & (run.ensemble_dataset("prior", "star_status") == 0)
+    for m in (1, 2):
+        rows = np.asarray(t["member"]) == m
+        np.testing.assert_array_equal(np.asarray(t["mass"][rows]), mass[m][stable[m]])
+        np.testing.assert_array_equal(np.asarray(t["gamma1"][rows]), run.ensembles["prior"].members["gamma1"][m])
+    assert len(t) == int(stable[1:3].sum())
+    code, stdout, err = run_cli("redshift", ensemble_run, "-o", tmp_path / "all.csv", "--keep-unstable")
+    assert code == 0 and f"({mass.size} rows)" in stdout, err
+
+
+@pytest.mark.parametrize(("extra", "needle"), [
+    (["--members", "7:9"], "selects none"),
+    (["--members", "2:1"], "--members"),
+    (["--members", "a:b"], "--members"),
+    (["--masses", "1:2:0.5"], "--masses"),
+])
+def test_ensemble_export_errors(ensemble_run, tmp_path, run_cli, extra, needle):
+    code, _, err = run_cli("redshift", ensemble_run, "-o", tmp_path / "x.csv", *extra)
+    assert code == 2 and needle in assert_one_error_line(err)
+    assert not (tmp_path / "x.csv").exists()
 
 
 def test_stars_at_masses_reproduce_the_mass(tiny_run):
     run = read_run(tiny_run)
-    for seq in run.eos.values():
+    for seq in (run.eos["sly"], run.eos["medium"]):  # the polytrope's maximum is above the sweep
         eos = eos_from_sequence(seq)
         targets = np.array([1.0, 1.4, 0.98 * seq.summary["max_mass"], seq.summary["max_mass"] + 0.1])
         stars = stars_at_masses(eos, seq, targets)

@@ -67,3 +67,75 @@ def test_match_surface_flags():
     assert list(match.below_buchdahl) == [True, True, False]
     np.testing.assert_allclose(match.surface_lapse_squared, 1 - 2 / (r / units.SOLAR_MASS_KM))
     np.testing.assert_allclose(match.surface_redshift, match.surface_lapse_squared**-0.5 - 1)
+
+
+# --- the inverse mapping for atmosphere fits (issue 13) ---------------------------
+
+def forward_with_astropy(mass_msun, radius_km):
+    """z, log10 g (cgs) and R_inf = R(1+z) from the exterior Schwarzschild metric, with astropy's constants.
+
+    z = (1 - 2GM/(Rc^2))^(-1/2) - 1, g = GM/(R^2 sqrt(1 - 2GM/(Rc^2))) (e.g. Misner, Thorne & Wheeler 1973,
+    sec. 31.2); GM_sun from IAU 2015 B3, c exact (astropy.constants).
+    """
+    gm = np.asarray(mass_msun) * iau2015.GM_sun
+    r = np.asarray(radius_km) * au.km
+    x = (2 * gm / (r * codata2018.c**2)).to_value(au.one)
+    z = np.expm1(-0.5 * np.log1p(-x))  # = (1 - x)^(-1/2) - 1 without cancellation for white dwarfs (z ~ 1e-4)
+    g = (gm / r**2).to_value(au.cm / au.s**2) * (1 + z)
+    return z, np.log10(g), np.asarray(radius_km) * (1 + z)
+
+
+#: Neutron stars and a white dwarf-like star: masses (Msun) and radii (km).
+MASSES = np.array([0.2, 1.0, 1.4, 2.0, 2.3, 0.6])
+RADII = np.array([15.0, 12.5, 11.8, 10.5, 9.0, 9000.0])
+
+
+def test_inverse_from_redshift_and_gravity_round_trips():
+    z, log_g, _ = forward_with_astropy(MASSES, RADII)
+    m, r = exterior.mass_radius_from_surface(z, log_g)
+    # issue 13: the closed form reproduces M and R to 1e-12
+    np.testing.assert_allclose(m, MASSES, rtol=1e-12)
+    np.testing.assert_allclose(r, RADII, rtol=1e-12)
+    # and back: the product's own forward formulas give the inputs again (its z = (1 - x)^(-1/2) - 1 loses
+    # 1e-16 / z to cancellation, so the white dwarf-like star is left out of this direction)
+    np.testing.assert_allclose(exterior.redshift_at_radius(m, r)[:-1], z[:-1], rtol=1e-12)
+    np.testing.assert_allclose(np.log10(exterior.surface_gravity(m, r)), log_g, rtol=1e-12)
+
+
+def test_inverse_from_radiation_radius_round_trips():
+    z, _, r_inf = forward_with_astropy(MASSES, RADII)
+    m, r = exterior.mass_radius_from_radiation_radius(r_inf, z)
+    np.testing.assert_allclose(m, MASSES, rtol=1e-12)
+    np.testing.assert_allclose(r, RADII, rtol=1e-12)
+    np.testing.assert_allclose(exterior.radiation_radius(MASSES, RADII), r_inf, rtol=1e-12)
+
+
+def test_inverse_takes_quantities_and_broadcasts():
+    z, log_g, r_inf = forward_with_astropy(1.4, 12.0)
+    m, r = exterior.mass_radius_from_surface(z * au.one, (log_g * au.dex(au.cm / au.s**2)).to(au.dex(au.m / au.s**2)))
+    assert float(m) == pytest.approx(1.4, rel=1e-12) and float(r) == pytest.approx(12.0, rel=1e-12)
+    m, r = exterior.mass_radius_from_radiation_radius(r_inf * 1000 * au.m, z)
+    assert float(r) == pytest.approx(12.0, rel=1e-12)
+    mg, rg = exterior.mass_radius_grid([0.2, 0.3, 0.4], log10_surface_gravity=[14.0, 14.3])
+    assert mg.shape == rg.shape == (3, 2)
+    m1, r1 = exterior.mass_radius_from_surface(0.3, 14.3)
+    assert mg[1, 1] == m1 and rg[1, 1] == r1
+    mg, rg = exterior.mass_radius_grid([0.2, 0.3], radiation_radius=[12.0, 14.0, 16.0])
+    assert mg.shape == (2, 3) and rg[0, 2] == pytest.approx(16.0 / 1.2, rel=1e-15)
+
+
+@pytest.mark.parametrize(("call", "key"), [
+    (lambda: exterior.mass_radius_from_surface(0.0, 14.0), "surface_redshift"),
+    (lambda: exterior.mass_radius_from_surface(-0.1, 14.0), "surface_redshift"),
+    (lambda: exterior.mass_radius_from_surface(2.5, 14.0), "surface_redshift"),  # beyond Buchdahl (1959): z < 2
+    (lambda: exterior.mass_radius_from_surface(0.3, np.nan), "log10_surface_gravity"),
+    (lambda: exterior.mass_radius_from_radiation_radius(-12.0, 0.3), "radiation_radius"),
+    (lambda: exterior.mass_radius_from_radiation_radius(12.0, [0.3, np.inf]), "surface_redshift"),
+    (lambda: exterior.mass_radius_grid([0.3]), "mass_radius_grid"),
+])
+def test_impossible_inputs_are_one_error_line(call, key):
+    from stellar_match.errors import InputError
+
+    with pytest.raises(InputError) as info:
+        call()
+    assert info.value.key == key and "\n" not in info.value.one_line()

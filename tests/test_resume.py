@@ -49,12 +49,27 @@ def datasets(path) -> dict[str, np.ndarray]:
     return found
 
 
+def _named(f: h5py.File, value):
+    """An attribute with HDF5 object references (the dimension-scale lists) as the names they point to.
+
+    References are file addresses, which need not agree between two files; what they label must.
+    """
+    if isinstance(value, h5py.Reference):
+        return f[value].name
+    if isinstance(value, np.ndarray) and value.dtype.kind in "OV":
+        return repr([_named(f, v) for v in value.tolist()] if value.dtype.kind == "O"
+                    else [tuple(_named(f, x) for x in v) for v in value.tolist()])
+    if isinstance(value, list | tuple):
+        return [_named(f, v) for v in value]
+    return value
+
+
 def attributes(path) -> dict[str, dict]:
     """Every object's attributes, except the creation time of the file."""
     found = {}
     with h5py.File(path, "r") as f:
         found["/"] = {k: v for k, v in f.attrs.items() if k != "created_utc"}
-        f.visititems(lambda name, obj: found.__setitem__(name, dict(obj.attrs)))
+        f.visititems(lambda name, obj: found.__setitem__(name, {k: _named(f, v) for k, v in obj.attrs.items()}))
     return found
 
 

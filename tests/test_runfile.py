@@ -35,25 +35,26 @@ energy_density = {{ column = "eps", unit = "erg/cm3" }}
 rest_mass_density = {{ column = "rho", unit = "g/cm3" }}
 """
 
-#: The units the spec (issue) requires for every per-star dataset.
+#: The units the spec (issue) requires for every per-star dataset, in astropy's spelling since
+#: format 3 (issue 13: every unit attribute parses with astropy.units.Unit).
 SPEC_UNITS = {
-    "central_density": "g/cm3",
-    "central_energy_density": "g/cm3",
-    "central_pressure": "dyn/cm2",
-    "mass": "Msun",
+    "central_density": "g / cm3",
+    "central_energy_density": "g / cm3",
+    "central_pressure": "dyn / cm2",
+    "mass": "solMass",
     "radius": "km",
-    "baryon_mass": "Msun",
-    "compactness": "1",
-    "surface_redshift": "1",
-    "surface_gravity": "cm/s2",
+    "baryon_mass": "solMass",
+    "compactness": "",
+    "surface_redshift": "",
+    "surface_gravity": "cm / s2",
     # issue #3 additions
-    "love_number_k2": "1",
-    "tidal_deformability": "1",
+    "love_number_k2": "",
+    "tidal_deformability": "",
     "moment_of_inertia": "g cm2",
-    "binding_energy": "Msun",
+    "binding_energy": "solMass",
     # issue #9 additions: every star's own quality
-    "error_estimate": "1",
-    "star_status": "1",
+    "error_estimate": "",
+    "star_status": "",
 }
 SPEC_GROUP_ATTRIBUTES = ("kind", "parameters", "causal", "max_mass", "max_mass_radius", "max_mass_central_density")
 
@@ -77,7 +78,7 @@ def test_root_attributes(tiny_run):
     with h5py.File(path, "r") as f:
         a = f.attrs
         assert a["format"] == "stellar_match.run"
-        assert a["format_version"] == 2  # 2: per-star star_status and error_estimate
+        assert a["format_version"] == 3  # 2: per-star star_status and error_estimate; 3: units, dimension scales
         assert a["software_version"] == stellar_match.__version__
         assert a["config_toml"] == cfg.read_text()
         created = dt.datetime.fromisoformat(a["created_utc"])
@@ -124,7 +125,7 @@ def test_datasets_and_units(tiny_run):
         for name in ("sly", "soft"):
             g = f["eos"][name]
             datasets = {k for k, v in g.items() if isinstance(v, h5py.Dataset)}
-            assert datasets == set(SPEC_UNITS) | {"stable"}
+            assert datasets == set(SPEC_UNITS) | {"stable", "star"}  # star: the dimension scale
             for col, unit in SPEC_UNITS.items():
                 d = g[col]
                 assert d.ndim == 1 and d.shape[0] == N_STARS, col
@@ -234,8 +235,8 @@ def test_read_run_rejects_a_newer_format_version(tiny_run, tmp_path):
     path = tmp_path / "future.h5"
     path.write_bytes(tiny_run[1].read_bytes())
     with h5py.File(path, "a") as f:
-        f.attrs["format_version"] = 3
-    with pytest.raises(RunFileError, match="format_version 3"):
+        f.attrs["format_version"] = 4
+    with pytest.raises(RunFileError, match="format_version 4"):
         read_run(path)
 
 
@@ -264,3 +265,156 @@ def test_output_path_that_is_a_folder_fails_before_solving(tmp_path, monkeypatch
     with pytest.raises(RunFileError, match="is a folder"):
         sweep.run_config(cfg, tmp_path / "out.h5", force=True)
     assert not (tmp_path / "out.h5.partial").exists()
+
+
+# --- format 3: astropy unit spellings, dimension scales, compression (issue 13) -------------
+
+ENSEMBLE_TEXT = """
+[[ensemble]]
+name = "prior"
+kind = "piecewise_polytrope"
+[ensemble.sample]
+count = 3
+seed = 7
+log10_p1 = [34.3, 34.5]
+gamma1 = [2.8, 3.2]
+gamma2 = [2.8, 3.2]
+gamma3 = [2.6, 3.0]
+"""
+MIXED_TEXT = f"""\
+[sweep]
+central_density = {{ min = 3e14, max = 3e15, count = 6 }}
+target_masses = [1.4]
+binaries = [[1.4, 1.4]]
+
+{SLY_BLOCK}
+[[eos]]
+name = "poly"
+kind = "polytrope"
+K = 1.0e5
+gamma = 2.0
+""" + ENSEMBLE_TEXT
+
+
+@pytest.fixture(scope="module")
+def mixed_run(tmp_path_factory):
+    """A run file with EOS (targets, binaries) and an ensemble, written with gzip."""
+    folder = tmp_path_factory.mktemp("mixed")
+    text = MIXED_TEXT + '\n[output]\ncompression = "gzip"\ncompression_level = 6\n'
+    return sweep.run_config(write_config(folder, text, "gzip.toml"), folder / "gzip.h5"), text
+
+
+def test_every_unit_attribute_parses_with_astropy(mixed_run):
+    u = pytest.importorskip("astropy.units")
+    seen = set()
+    with h5py.File(mixed_run[0], "r") as f:
+        def visit(name, obj):
+            if isinstance(obj, h5py.Dataset) and "unit" in obj.attrs:
+                seen.add(obj.attrs["unit"])
+                u.Unit(obj.attrs["unit"])  # raises for a spelling astropy does not know
+        f.visititems(visit)
+    # the exports' spellings (issue 13): solMass, "g / cm3", "" for dimensionless ...
+    assert {"solMass", "g / cm3", "dyn / cm2", "km", "cm / s2", "g cm2", ""} <= seen
+    assert not seen & {"Msun", "g/cm3", "1"}
+
+
+def test_dimension_scales_name_every_axis(mixed_run):
+    with h5py.File(mixed_run[0], "r") as f:
+        g = f["eos/sly"]
+        assert g["star"].is_scale and list(g["star"][()]) == list(range(6))
+        for name in ("mass", "stable", "star_status"):
+            assert g[name].dims[0][0].name == "/eos/sly/star", name
+        assert f["eos/sly/targets/radius"].dims[0][0].name == "/eos/sly/targets/target"
+        assert f["eos/sly/binaries/lambda_tilde"].dims[0][0].name == "/eos/sly/binaries/binary"
+        e = f["ensemble/prior"]
+        assert [e["radius"].dims[i][0].name for i in (0, 1)] == ["/ensemble/prior/member", "/ensemble/prior/star"]
+        assert e["max_mass"].dims[0][0].name == "/ensemble/prior/member"
+        assert e["sweep_values"].dims[0][0].name == "/ensemble/prior/star"
+        assert e["members/gamma1"].dims[0][0].name == "/ensemble/prior/member"
+
+
+def test_xarray_sees_named_dimensions(mixed_run):
+    xr = pytest.importorskip("xarray")
+    pytest.importorskip("h5netcdf")
+    with xr.open_dataset(mixed_run[0], engine="h5netcdf", group="eos/sly") as ds:
+        assert ds["mass"].dims == ("star",) and ds.sizes["star"] == 6
+        assert ds["mass"].attrs["unit"] == "solMass"
+    with xr.open_dataset(mixed_run[0], engine="h5netcdf", group="ensemble/prior") as ds:
+        assert ds["radius"].dims == ("member", "star") and ds["max_mass"].dims == ("member",)
+    with xr.open_dataset(mixed_run[0], engine="h5netcdf", group="eos/sly/targets") as ds:
+        assert ds["radius"].dims == ("target",)
+
+
+def test_gzip_compresses_and_changes_no_value(mixed_run):
+    packed, text = mixed_run
+    with h5py.File(packed, "r") as f:
+        assert f["eos/sly/mass"].compression == "gzip" and f["eos/sly/mass"].compression_opts == 6
+        assert f["ensemble/prior/radius"].compression == "gzip" and f["eos/sly/mass"].shuffle
+    # the same stars as an uncompressed in-memory sweep, bit for bit
+    from stellar_match.config import parse_config
+
+    config = parse_config(text)
+    memory = sweep.sweep_eos(config.eos[0].build(), config.axis.quantity, config.axis.values)
+    disk = read_run(packed).eos["sly"]
+    for col in STAR_DATASETS:
+        np.testing.assert_array_equal(disk[col], memory[col], err_msg=col)
+
+
+def downgrade(path, version):
+    """Rewrite a format-3 file as an older version wrote it: old unit spellings, no dimension scales
+    (and, for version 1, no star_status / error_estimate), following schema.py's format history."""
+    from stellar_match.schema import LEGACY_UNITS
+
+    with h5py.File(path, "a") as f:
+        f.attrs["format_version"] = version
+        scales = []
+
+        def visit(name, obj):
+            if isinstance(obj, h5py.Dataset):
+                if obj.is_scale:
+                    scales.append(name)
+                elif "unit" in obj.attrs:
+                    obj.attrs["unit"] = LEGACY_UNITS.get(obj.attrs["unit"], obj.attrs["unit"])
+        f.visititems(visit)
+        for name in scales:  # detach first, so no dataset keeps a reference to a deleted scale
+            scale = f[name]
+            for obj in [o for o in (f[n] for n in _datasets(f)) if o.name != scale.name]:
+                for dim in obj.dims:
+                    if scale in dim.values():
+                        dim.detach_scale(scale)
+        for name in scales:
+            del f[name]
+        if version == 1:
+            for group in ("eos/sly", "eos/poly", "ensemble/prior"):
+                for name in ("star_status", "error_estimate"):
+                    del f[f"{group}/{name}"]
+                del f[group].attrs["star_status_meaning"]
+
+
+def _datasets(f):
+    out = []
+    f.visititems(lambda n, o: out.append(n) if isinstance(o, h5py.Dataset) else None)
+    return out
+
+
+@pytest.mark.parametrize("version", [1, 2])
+def test_older_format_versions_are_still_read(mixed_run, tmp_path, version, run_cli):
+    path = tmp_path / f"v{version}.h5"
+    path.write_bytes(mixed_run[0].read_bytes())
+    downgrade(path, version)
+    with h5py.File(path, "r") as f:
+        assert f["eos/sly/mass"].attrs["unit"] == "Msun" and "star" not in f["eos/sly"]
+    run = read_run(path)
+    fresh = read_run(mixed_run[0])
+    np.testing.assert_array_equal(run.eos["sly"]["mass"], fresh.eos["sly"]["mass"])
+    assert ("star_status" in run.eos["sly"].columns) == (version >= 2)
+    assert run.ensembles["prior"].to_table()["max_mass"].unit == "solMass"
+    code, out, err = run_cli("redshift", path, "-o", tmp_path / "z.ecsv")
+    assert code == 0, err
+    # a version-3 file with an old spelling is refused (the check on open names the dataset)
+    bad = tmp_path / "bad.h5"
+    bad.write_bytes(path.read_bytes())
+    with h5py.File(bad, "a") as f:
+        f.attrs["format_version"] = 3
+    with pytest.raises(RunFileError, match=None if version == 1 else "unit|dimension scale"):
+        read_run(bad)
