@@ -80,32 +80,39 @@ def sampler_calls(constraints, calls: int) -> dict:
 
 
 def tiled_run_file(source: Path, out: Path, members: int) -> Path:
-    """A valid run file whose ensemble repeats the members of ``source`` up to ``members``."""
-    with h5py.File(source, "r") as src, h5py.File(out, "w") as dst:
-        for k, v in src.attrs.items():
-            dst.attrs[k] = v
-        src.copy("eos", dst)
-        name = next(iter(src["ensemble"]))
-        g, h = src["ensemble"][name], dst.create_group("ensemble").create_group(name)
-        for k, v in g.attrs.items():
-            h.attrs[k] = v
-        n = g["status"].shape[0]
-        reps = -(-members // n)
+    """A valid run file whose ensemble repeats the members of ``source`` up to ``members``.
 
-        def tile(a):
-            a = np.asarray(a)
-            return np.concatenate([a] * reps, axis=0)[:members]
+    Written by the project's own writer, part by part, so that it is a run file like any other.
+    """
+    from types import SimpleNamespace
 
-        mem = h.create_group("members")
-        for k, d in g["members"].items():
-            mem.create_dataset(k, data=tile(d[()]))
-        for k, d in g.items():
-            if isinstance(d, h5py.Dataset):
-                data = d[()] if k == "sweep_values" else tile(d[()])
-                nd = h.create_dataset(k, data=data, chunks=True if data.ndim == 2 else None)
-                for a, v in d.attrs.items():
-                    nd.attrs[a] = v
-    return out
+    import stellar_match as sm
+    from stellar_match.ensemble import EnsembleSpec
+    from stellar_match.runfile import RunFileWriter
+    from stellar_match.schema import MEMBER_SUMMARIES, STAR_DATASETS
+
+    run = sm.read_run(source)
+    name = next(iter(run.ensembles))
+    summary = run.ensembles[name]
+    n = summary.size
+    with h5py.File(source, "r") as f:
+        g = f["ensemble"][name]
+        columns = {k: g[k][()] for k in (*STAR_DATASETS, *MEMBER_SUMMARIES)}
+        axis = SimpleNamespace(quantity=g.attrs["sweep_quantity"], values=g["sweep_values"][()],
+                               unit=g["sweep_values"].attrs["unit"])
+    names = list(summary.members)
+    params = np.column_stack([summary.members[k] for k in names])
+    tiled = np.concatenate([params] * (-(-members // n)))[:members]
+    spec = EnsembleSpec(index=0, name=name, kind=summary.kind, parameters=tiled, origin={"tiled_from": str(source)})
+
+    def parts():
+        for a in range(0, members, n):
+            b = min(members, a + n)
+            yield SimpleNamespace(start=a, stop=b), {k: v[: b - a] for k, v in columns.items()}
+
+    writer = RunFileWriter(out, config_text=run.attrs.get("config_toml", ""), force=True)
+    writer.write_ensemble(spec, axis, parts())
+    return writer.close()
 
 
 def main(argv: list[str] | None = None) -> int:
