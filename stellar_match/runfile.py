@@ -267,7 +267,7 @@ class RunFileWriter:
             members.create_dataset(name, data=spec.parameters[:, j])
         if getattr(spec, "prior_weight", None) is not None:
             d = g.create_dataset(PRIOR_WEIGHT, data=np.asarray(spec.prior_weight, dtype=float))
-            d.attrs["unit"] = "1"
+            d.attrs["unit"] = ""
             d.attrs["description"] = "prior weight of each member (the members CSV's weight column)"
         ax = g.create_dataset("sweep_values", data=axis.values)
         ax.attrs["unit"] = SWEEP_UNITS[axis.quantity]

@@ -606,11 +606,11 @@ def _write_ensemble_score(g, e: EnsembleScore, labels: list[str]) -> None:
     g.attrs["counts"] = json.dumps(e.counts)
     g.attrs["member_status_meaning"] = json.dumps({str(k): v for k, v in MEMBER_STATUS.items()})
     data = {
-        "log_likelihood": (e.log_likelihood, "1", "total ln L of each member (NaN: not scored, see likelihood_status)"),
-        "log_likelihood_by_measurement": (e.log_likelihood_by_measurement, "1", "ln L, members x measurements"),
-        "likelihood_status": (e.likelihood_status, "1", "likelihood status of each member"),
-        "weight": (e.weight, "1", "posterior weight of each member (sums to 1)"),
-        "prior_weight": (e.prior_weight, "1", "normalised prior weight of each member"),
+        "log_likelihood": (e.log_likelihood, "", "total ln L of each member (NaN: not scored, see likelihood_status)"),
+        "log_likelihood_by_measurement": (e.log_likelihood_by_measurement, "", "ln L, members x measurements"),
+        "likelihood_status": (e.likelihood_status, "", "likelihood status of each member"),
+        "weight": (e.weight, "", "posterior weight of each member (sums to 1)"),
+        "prior_weight": (e.prior_weight, "", "normalised prior weight of each member"),
         "band_mass": (e.band_mass, "solMass", "masses of the credible bands"),
         "band_radius": (e.band_radius, "km", "posterior quantiles of R(M): levels x masses"),
         "band_radius_prior": (e.band_radius_prior, "km", "prior quantiles of R(M): levels x masses"),
