@@ -42,7 +42,6 @@ file and the dotted key (``binary[0].q_min``), or the sample file and line.
 from __future__ import annotations
 
 import hashlib
-import io
 import math
 import re
 import tomllib
@@ -487,41 +486,14 @@ def read_samples(path: Path, columns: list[str], *, source: str, key: str) -> tu
     The first non-comment line is the header (names separated by commas);
     ``#`` lines and blank lines are skipped.
     """
-    def fail(message: str, line: int | None = None) -> ConfigError:
-        where = f" (line {line})" if line is not None else ""
-        return ConfigError(f"sample file {path}{where}: {message}", source=source, key=key)
+    from .csv_columns import read_columns
 
-    try:
-        raw = path.read_bytes()
-    except IsADirectoryError:
-        raise fail("is a folder, not a CSV file") from None
-    except OSError:
-        raise fail("not found or unreadable") from None
-    text = raw.decode("utf-8-sig", errors="replace")
-    lines = [(i, ln.strip()) for i, ln in enumerate(io.StringIO(text), start=1)
-             if ln.strip() and not ln.strip().startswith("#")]
-    if not lines:
-        raise fail("empty: no header row")
-    header = [h.strip() for h in lines[0][1].split(",")]
-    missing = [c for c in columns if c not in header]
-    if missing:
-        raise fail(f"lacks column(s) {', '.join(missing)}; header has {', '.join(header)}", lines[0][0])
-    idx = [header.index(c) for c in columns]
-    rows = []
-    for number, line in lines[1:]:
-        fields = [f.strip() for f in line.split(",")]
-        if len(fields) != len(header):
-            raise fail(f"{len(fields)} fields where the header has {len(header)}", number)
-        try:
-            row = [float(fields[c]) for c in idx]
-        except ValueError:
-            raise fail("a sample is not a number", number) from None
-        if not all(math.isfinite(v) for v in row):
-            raise fail("a sample is not finite", number)
-        rows.append(row)
+    rows, sha, _ = read_columns(path, columns, what="sample file", item="sample", source=source, key=key,
+                                finite=True)
     if len(rows) < MIN_SAMPLES:
-        raise fail(f"{len(rows)} sample rows; at least {MIN_SAMPLES} are needed")
-    return np.array(rows), hashlib.sha256(raw).hexdigest()
+        raise ConfigError(f"sample file {path}: {len(rows)} sample rows; at least {MIN_SAMPLES} are needed",
+                          source=source, key=key)
+    return rows, sha
 
 
 def load_constraints(path: str | Path) -> Constraints:

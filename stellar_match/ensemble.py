@@ -10,7 +10,6 @@ never stops the run.
 
 from __future__ import annotations
 
-import io
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -162,53 +161,29 @@ WEIGHT_COLUMN = "weight"
 def _read_members(path: Path, names: tuple[str, ...], source: str, key: str
                   ) -> tuple[np.ndarray, str, np.ndarray | None]:
     """(parameters (members, names), sha256 of the file, prior weights or None)."""
-    import hashlib
+    from .csv_columns import read_columns
 
     def fail(message: str, line: int | None = None) -> ConfigError:
         where = f" (line {line})" if line is not None else ""
         return ConfigError(f"members file {path}{where}: {message}", source=source, key=key)
 
-    try:
-        raw = path.read_bytes()
-    except OSError:
-        raise fail("not found or unreadable") from None
-    text = raw.decode("utf-8-sig", errors="replace")
-    lines = [(i, ln.strip()) for i, ln in enumerate(io.StringIO(text), start=1)
-             if ln.strip() and not ln.strip().startswith("#")]
-    if not lines:
-        raise fail("no header row")
-    header = [h.strip() for h in lines[0][1].split(",")]
-    missing = [n for n in names if n not in header]
-    if missing:
-        raise fail(f"lacks column(s) {', '.join(missing)}; header has {', '.join(header)}", lines[0][0])
-    cols = [header.index(n) for n in names]
-    if WEIGHT_COLUMN in header:
-        cols.append(header.index(WEIGHT_COLUMN))
-    rows = []
-    for number, line in lines[1:]:
-        fields = [f.strip() for f in line.split(",")]
-        if len(fields) != len(header):
-            raise fail(f"{len(fields)} fields where the header has {len(header)}", number)
-        try:
-            rows.append([float(fields[c]) for c in cols])
-        except ValueError:
-            raise fail("a parameter is not a number", number) from None
-    if not rows:
+    table, sha, present = read_columns(path, list(names), optional=(WEIGHT_COLUMN,), what="members file",
+                                       item="parameter", source=source, key=key)
+    if not len(table):
         raise fail("no member rows")
-    if len(rows) > 10**6:
-        raise fail(f"{len(rows)} members; at most 1000000 per ensemble")
-    table = np.array(rows)
+    if len(table) > 10**6:
+        raise fail(f"{len(table)} members; at most 1000000 per ensemble")
     weight = None
-    if WEIGHT_COLUMN in header:
+    if present:
         weight = table[:, -1]
         bad = np.flatnonzero(~np.isfinite(weight) | (weight < 0))
         if bad.size:
-            raise fail(f"column {WEIGHT_COLUMN} needs finite numbers >= 0, got {weight[bad[0]]:g}",
-                       lines[1 + bad[0]][0])
+            raise fail(f"column {WEIGHT_COLUMN} needs finite numbers >= 0, got {weight[bad[0]]:g} "
+                       f"(member {bad[0]}, 0-based)")
         if not weight.sum() > 0:
             raise fail(f"column {WEIGHT_COLUMN} is 0 for every member")
         table = table[:, :-1]
-    return table, hashlib.sha256(raw).hexdigest(), weight
+    return table, sha, weight
 
 
 def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, values,
