@@ -34,8 +34,8 @@ from pathlib import Path
 
 import numpy as np
 
-from . import units
-from .errors import InputError, TableError
+from .. import units
+from ..errors import InputError, TableError
 
 __all__ = [
     "EquationOfState",
