@@ -1,34 +1,22 @@
-"""Equations of state, parametrised by the log-enthalpy.
+"""Power-law pieces: polytropes, Read et al. piecewise polytropes and tables.
 
-The structure solver asks an EOS for pressure, energy density and rest-mass
-density as functions of the dimensionless log-enthalpy
+:class:`PiecewisePolytrope` -- any number of pieces p = K rho^Gamma with the
+energy density fixed by the first law,
+eps = (1 + a_i) rho + K_i rho^Gamma_i / (Gamma_i - 1)
+(Read, Lackey, Owen & Friedman 2009, PRD 79, 124032, eqs. 3-7).  A single
+polytrope, the Read et al. parametrisation and tabulated EOS (one piece per
+table interval, see :func:`from_table`) are all instances.  Every piece is
+inverted analytically in h, so no root finding happens during a solve.
 
-    h = integral_0^p dp' / (eps(p') + p'),
-
-which is zero at the stellar surface (Lindblom 1992, ApJ 398, 569).  All
-quantities returned here are geometric (G = c = 1, lengths in km, densities
-in km^-2); see :mod:`stellar_match.units`.
-
-Three families share one evaluation path:
-
-* :class:`PiecewisePolytrope` -- any number of pieces p = K rho^Gamma with the
-  energy density fixed by the first law,
-  eps = (1 + a_i) rho + K_i rho^Gamma_i / (Gamma_i - 1)
-  (Read, Lackey, Owen & Friedman 2009, PRD 79, 124032, eqs. 3-7).  A single
-  polytrope, the Read et al. parametrisation and tabulated EOS (one piece per
-  table interval, see :func:`from_table`) are all instances.  Every piece is
-  inverted analytically in h, so no root finding happens during a solve.
-* :class:`Incompressible` -- constant energy density, the validation case with
-  the exact interior solution of Schwarzschild (1916).
-
-Factory functions at the bottom build these from physical (cgs) parameters.
+Factory functions build these from physical (cgs) parameters.  The SLy crust
+fit of Read et al. (:data:`SLY_CRUST`) is also the crust of the spectral and
+sound-speed kinds.
 """
 
 from __future__ import annotations
 
 import hashlib
 import io
-from abc import ABC, abstractmethod
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -36,115 +24,20 @@ import numpy as np
 
 from .. import units
 from ..errors import InputError, TableError
+from .base import EquationOfState
 
 __all__ = [
-    "EquationOfState",
     "PiecewisePolytrope",
-    "Incompressible",
     "polytrope",
     "read_piecewise_polytrope",
     "from_table",
-    "incompressible",
     "SLY_CRUST",
-    "central_enthalpy",
     "READ_CORE_DIVIDING_DENSITIES",
+    "TableColumns",
+    "read_table_file",
+    "sly_crust_dividing_densities",
+    "FIRST_LAW_TOLERANCE",
 ]
-
-
-class EquationOfState(ABC):
-    """Interface between an EOS and the structure solver (geometric units).
-
-    Attributes
-    ----------
-    name : str
-        The user's label for this EOS.
-    kind : str
-        The config ``kind`` it was built from.
-    parameters : dict
-        The physical parameters it was built from (JSON-serialisable).
-    breakpoints_h : ndarray, shape (n_pieces - 1,)
-        Log-enthalpies of the piece boundaries, ascending, all > 0.  The
-        solver places step boundaries exactly here.
-    h_max : float
-        Largest log-enthalpy at which the EOS is defined (inf if unbounded).
-    table_sha256 : str or None
-        SHA-256 of the table file for tabulated EOS.
-    """
-
-    name: str
-    kind: str
-    parameters: dict
-    breakpoints_h: np.ndarray
-    h_max: float
-    table_sha256: str | None = None
-
-    @abstractmethod
-    def piece_index(self, h: np.ndarray) -> np.ndarray:
-        """Index of the piece containing each log-enthalpy (boundaries go down)."""
-
-    @abstractmethod
-    def piece_arrays(self) -> dict[str, np.ndarray]:
-        """Per-piece coefficient arrays consumed by :meth:`state_from_coefficients`."""
-
-    @staticmethod
-    @abstractmethod
-    def state_from_coefficients(h, coeff, expm1_h=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """(p, eps, rho) at ``h`` given per-point coefficients ``coeff``.
-
-        The solver gathers coefficients once per step and calls this once per
-        stage; it is the hot path.  ``expm1_h``, if given, is expm1(h),
-        computed once per stage and shared with the response equations.
-        """
-
-    @staticmethod
-    @abstractmethod
-    def slope_from_coefficients(p, eps, coeff) -> np.ndarray:
-        """d eps / d h = (eps + p) / c_s^2 from (p, eps) and per-point coefficients."""
-
-    #: Energy density just inside the surface (km^-2): 0 unless the EOS ends in a jump.
-    surface_energy_density: float = 0.0
-
-    def state(self, h) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Pressure, energy density and rest-mass density at log-enthalpy ``h``.
-
-        Parameters
-        ----------
-        h : array_like
-            Log-enthalpy, 0 <= h <= ``h_max``.
-
-        Returns
-        -------
-        p, eps, rho : ndarray
-            Geometric units, km^-2.
-        """
-        h = np.asarray(h, dtype=float)
-        return self.state_from_coefficients(h, self.coefficients_at(h))
-
-    def coefficients_at(self, h) -> dict[str, np.ndarray]:
-        """The per-piece coefficients gathered at each log-enthalpy ``h``."""
-        idx = self.piece_index(np.asarray(h, dtype=float))
-        return {k: v[idx] for k, v in self.piece_arrays().items()}
-
-    @abstractmethod
-    def energy_density_slope(self, h) -> np.ndarray:
-        """d eps / d h (km^-2) at ``h``: (eps + p) / c_s^2 for a barotropic fluid."""
-
-    @abstractmethod
-    def enthalpy_of_density(self, rho) -> np.ndarray:
-        """Log-enthalpy at rest-mass density ``rho`` (km^-2)."""
-
-    @abstractmethod
-    def enthalpy_of_pressure(self, p) -> np.ndarray:
-        """Log-enthalpy at pressure ``p`` (km^-2)."""
-
-    @abstractmethod
-    def max_sound_speed_squared(self, h_top: float) -> float:
-        """Largest c_s^2 / c^2 for 0 <= h <= ``h_top``."""
-
-    def sound_speed_squared(self, h) -> np.ndarray:
-        """Squared sound speed dp/d eps in units of c^2."""
-        p, eps, _ = self.state(h)
-        return (eps + p) / np.asarray(self.energy_density_slope(h))
 
 
 @dataclass(eq=False)
@@ -290,64 +183,6 @@ class PiecewisePolytrope(EquationOfState):
         return float(np.max(self.gamma[pieces] * p / (eps + p)))
 
 
-@dataclass(eq=False)
-class Incompressible(EquationOfState):
-    """Constant energy density eps_0 at every pressure (Schwarzschild 1916).
-
-    Since h = ln((eps_0 + p)/eps_0), p(h) = eps_0 (e^h - 1).  The sound speed is
-    infinite, so this EOS is never causal; it exists to validate the solver
-    and the surface match against the exact interior solution.  Its
-    "rest-mass density" is taken as eps_0 (no internal energy).
-    """
-
-    name: str
-    energy_density: float  # km^-2
-    kind: str = "incompressible"
-    parameters: dict = field(default_factory=dict)
-    h_max: float = np.inf
-
-    def __post_init__(self) -> None:
-        if not np.isfinite(self.energy_density) or self.energy_density <= 0:
-            raise InputError("energy_density must be positive and finite")
-        self.breakpoints_h = np.empty(0)
-        self._coeff = {"eps0": np.array([self.energy_density])}
-        self.surface_energy_density = self.energy_density
-
-    def piece_index(self, h):
-        return np.zeros(np.shape(h), dtype=np.intp)
-
-    def piece_arrays(self):
-        return self._coeff
-
-    @staticmethod
-    def state_from_coefficients(h, coeff, expm1_h=None):
-        eps0 = coeff["eps0"]
-        p = eps0 * (np.expm1(h) if expm1_h is None else expm1_h)
-        eps = eps0 + 0.0 * p
-        return p, eps, eps
-
-    @staticmethod
-    def slope_from_coefficients(p, eps, coeff):
-        return np.zeros_like(p)
-
-    def energy_density_slope(self, h):
-        return np.zeros(np.shape(h))
-
-    def sound_speed_squared(self, h):
-        return np.full(np.shape(h), np.inf)
-
-    def enthalpy_of_density(self, rho):
-        raise InputError(
-            "an incompressible EOS has no rest-mass density axis; sweep `central_pressure`"
-        )
-
-    def enthalpy_of_pressure(self, p):
-        return np.log1p(np.asarray(p, dtype=float) / self.energy_density)
-
-    def max_sound_speed_squared(self, h_top):
-        return np.inf
-
-
 # --- Factories from physical (cgs) parameters -------------------------------
 
 #: SLy crust fit of Read et al. 2009, Table II (from memory, as listed in
@@ -472,20 +307,6 @@ def read_piecewise_polytrope(
         K=K,
         gamma=g,
         parameters={"log10_p1": float(log10_p1), "gammas": gammas, "crust": "SLy (Read et al. 2009)"},
-    )
-
-
-def incompressible(name: str, energy_density: float) -> Incompressible:
-    """Uniform-density EOS with energy density ``energy_density`` (g/cm^3, eps/c^2)."""
-    if not (np.isfinite(energy_density) and energy_density > 0):
-        raise InputError(
-            f"energy_density must be positive (g/cm^3), got {energy_density!r}",
-            key="energy_density",
-        )
-    return Incompressible(
-        name=name,
-        energy_density=energy_density * units.DENSITY_CGS_TO_GEOM,
-        parameters={"energy_density": energy_density, "energy_density_unit": "g/cm3"},
     )
 
 
@@ -683,106 +504,3 @@ def from_table(name: str, path: str | Path, columns: TableColumns) -> PiecewiseP
         "baryon_mass_g": units.NEUTRON_MASS_G,
     }
     return eos
-
-
-class EOSStack:
-    """Several piecewise polytropes with the same number of pieces, solved as one batch.
-
-    Ensembles solve the stars of many members together: every star carries
-    the index of its member, and the per-piece coefficients of all members
-    sit in one flat table.  :meth:`bind` returns the object the solver uses.
-
-    Parameters
-    ----------
-    members : list of PiecewisePolytrope
-        The members; all must have the same number of pieces.
-    """
-
-    def __init__(self, members: list[PiecewisePolytrope]) -> None:
-        if not members:
-            raise ValueError("an EOS stack needs at least one member")
-        pieces = {m.gamma.size for m in members}
-        if len(pieces) != 1:
-            raise ValueError("stacked EOS must all have the same number of pieces")
-        self.members = members
-        self.n_pieces = pieces.pop()
-        self.breakpoints = np.array([m.breakpoints_h for m in members]).reshape(len(members), self.n_pieces - 1)
-        self.coeff = {k: np.concatenate([m.piece_arrays()[k] for m in members]) for k in members[0].piece_arrays()}
-
-    def bind(self, member) -> BoundEOSStack:
-        """The stack seen by a batch whose star j belongs to member ``member[j]``."""
-        return BoundEOSStack(self, np.asarray(member, dtype=np.intp))
-
-
-class BoundEOSStack:
-    """An :class:`EOSStack` with a member index per star (the solver's EOS for ensembles).
-
-    Methods take arrays whose last axis runs over the batch's stars.
-    """
-
-    surface_energy_density = 0.0
-    h_max = np.inf
-    state_from_coefficients = staticmethod(PiecewisePolytrope.state_from_coefficients)
-    slope_from_coefficients = staticmethod(PiecewisePolytrope.slope_from_coefficients)
-
-    def __init__(self, stack: EOSStack, member: np.ndarray) -> None:
-        self.stack, self.member = stack, member
-        self.offset = member * stack.n_pieces
-        self.star_breakpoints = stack.breakpoints[member]  # (n, P - 1)
-
-    def select(self, stars) -> BoundEOSStack:
-        """The same stack bound to a subset of this batch's stars."""
-        return BoundEOSStack(self.stack, self.member[stars])
-
-    def piece_index(self, h):
-        h = np.asarray(h, dtype=float)
-        local = (self.star_breakpoints < h[..., None]).sum(axis=-1)
-        return self.offset + local
-
-    def piece_arrays(self):
-        return self.stack.coeff
-
-    def _per_star(self, fn_name: str, values):
-        values = np.asarray(values, dtype=float)
-        out = np.empty(values.shape)
-        for m in np.unique(self.member):
-            sel = self.member == m
-            out[..., sel] = getattr(self.stack.members[m], fn_name)(values[..., sel])
-        return out
-
-    # the same per-point evaluation as a single EOS, through piece_index / piece_arrays
-    state = EquationOfState.state
-    coefficients_at = EquationOfState.coefficients_at
-    energy_density_slope = PiecewisePolytrope.energy_density_slope
-
-    def enthalpy_of_density(self, rho):
-        return self._per_star("enthalpy_of_density", rho)
-
-
-def central_enthalpy(eos: EquationOfState, quantity: str, values) -> np.ndarray:
-    """Central log-enthalpies for central densities (g/cm^3) or pressures (dyn/cm^2).
-
-    Raises
-    ------
-    InputError
-        For values outside a table's range or the wrong axis for the EOS.
-    """
-    values = np.asarray(values, dtype=float)
-    if np.any(~np.isfinite(values) | (values <= 0)):
-        raise InputError(f"{quantity} values must be positive and finite", key=f"sweep.{quantity}")
-    if quantity == "central_density":
-        h = eos.enthalpy_of_density(units.density_to_geometric(values))
-    elif quantity == "central_pressure":
-        h = eos.enthalpy_of_pressure(units.pressure_to_geometric(values))
-    else:
-        raise ValueError(f"unknown sweep quantity {quantity!r}")
-    if np.any(h > eos.h_max * (1 + 1e-12)):
-        top = values[np.argmax(h)]
-        unit = "g/cm3" if quantity == "central_density" else "dyn/cm2"
-        lo, hi = getattr(eos, "table_density_range", (np.nan, np.nan))
-        raise InputError(
-            f"{top:.4g} {unit} lies beyond the table of EOS {eos.name!r} "
-            f"(rest-mass density up to {hi:.4g} g/cm3)",
-            key=f"sweep.{quantity}",
-        )
-    return h
