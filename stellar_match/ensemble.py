@@ -18,7 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from . import units
-from .eos import EquationOfState, central_enthalpy, polytrope, read_piecewise_polytrope
+from .eos import EquationOfState, central_enthalpy, registry
 from .errors import ConfigError, InputError
 from .exterior import star_columns
 from .schema import MEMBER_STATUS, MEMBER_SUMMARIES, NOT_SOLVED, STAR_DATASETS, group_name_problem
@@ -27,11 +27,11 @@ from .structure import StepControl, solve_interiors
 
 __all__ = ["EnsembleSpec", "ENSEMBLE_KINDS", "MEMBER_STATUS", "MEMBER_SUMMARIES", "solve_members"]
 
-#: Parameters of each ensemble kind, in the order of the member table.
-ENSEMBLE_KINDS: dict[str, tuple[str, ...]] = {
-    "piecewise_polytrope": ("log10_p1", "gamma1", "gamma2", "gamma3"),
-    "polytrope": ("K", "gamma"),
-}
+#: The EOS kinds an ensemble can have (those whose keys map to member columns), from the one
+#: registry of kinds (:mod:`stellar_match.eos.registry`).
+ENSEMBLE_KINDS: dict[str, registry.EOSKind] = {k: v for k, v in registry.KINDS.items() if v.columns is not None}
+
+
 @dataclass(frozen=True)
 class EnsembleSpec:
     """One validated ``[[ensemble]]`` block.
@@ -43,9 +43,14 @@ class EnsembleSpec:
     name, kind : str
         Label and EOS kind (a key of :data:`ENSEMBLE_KINDS`).
     parameters : ndarray, shape (members, n_parameters)
-        Member parameters, columns in ``ENSEMBLE_KINDS[kind]`` order.
+        Member parameters, one column per entry of ``columns``.
     origin : dict
-        How the members were given (file and its sha256, or sampler ranges and seed).
+        How the members were given (file and its sha256, or sampler ranges and
+        seed) and the block's ``fixed`` keys, as written in the config.
+    columns : tuple of str
+        The member columns (:func:`stellar_match.eos.registry.member_columns`).
+    fixed : dict
+        The kind's keys given once in the block, for every member (parsed).
     """
 
     index: int
@@ -53,6 +58,8 @@ class EnsembleSpec:
     kind: str
     parameters: np.ndarray = field(repr=False)
     origin: dict
+    columns: tuple[str, ...] = ()
+    fixed: dict = field(default_factory=dict, repr=False)
 
     @property
     def size(self) -> int:
@@ -60,15 +67,15 @@ class EnsembleSpec:
 
     @property
     def parameter_names(self) -> tuple[str, ...]:
-        return ENSEMBLE_KINDS[self.kind]
+        return self.columns
+
+    def member_options(self, i: int) -> dict:
+        """The options of member ``i``, as an ``[[eos]]`` block of the kind would give them."""
+        return registry.member_options(self.kind, self.fixed, self.columns, self.parameters[i])
 
     def member_eos(self, i: int) -> EquationOfState:
         """Build member ``i`` (raises InputError for invalid parameters)."""
-        row = self.parameters[i]
-        name = f"{self.name}[{i}]"
-        if self.kind == "piecewise_polytrope":
-            return read_piecewise_polytrope(name, row[0], [row[1], row[2], row[3]])
-        return polytrope(name, row[0], row[1])
+        return registry.build_eos(self.kind, f"{self.name}[{i}]", self.member_options(i))
 
 
 def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) -> EnsembleSpec:
@@ -80,17 +87,24 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
 
     if not isinstance(block, dict):
         raise fail("", "needs a table")
-    allowed = {"name", "kind", "members", "sample"}
+    own = {"name", "kind", "members", "sample"}
+    kind = block.get("kind")
+    kind_keys = ENSEMBLE_KINDS[kind].keys if isinstance(kind, str) and kind in ENSEMBLE_KINDS else ()
+    allowed = own | set(kind_keys)
     for k in block:
         if k not in allowed:
             raise fail(k, f"unknown key (expected one of: {', '.join(sorted(allowed))})")
-    name, kind = block.get("name"), block.get("kind")
+    name = block.get("name")
     problem = group_name_problem(name)  # the name becomes the run file's /ensemble/<name> group
     if problem:
         raise fail("name", problem)
     if kind not in ENSEMBLE_KINDS:
         raise fail("kind", f"unknown ensemble kind {kind!r} (use one of: {', '.join(ENSEMBLE_KINDS)})")
-    names = ENSEMBLE_KINDS[kind]
+    # keys given once in the block hold for every member; the others are member columns
+    column_keys = frozenset(c.key for c in ENSEMBLE_KINDS[kind].columns)
+    _, fixed = registry.parse_options({k: v for k, v in block.items() if k not in own - {"kind"}}, source, key,
+                                      base_dir, open_keys=column_keys)
+    fixed_raw = {k: block[k] for k in kind_keys if k in block}
     if ("members" in block) == ("sample" in block):
         raise fail("", "needs exactly one of members (a CSV file) or [ensemble.sample]")
     if "members" in block:
@@ -100,12 +114,14 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         p = Path(path)
         if not p.is_absolute() and base_dir is not None:
             p = base_dir / p
+        names = registry.member_columns(kind, fixed, _csv_header(p))
         params, sha = _read_members(p, names, source, f"{key}.members")
         origin = {"members": str(p), "members_sha256": sha}
     else:
         spec = block["sample"]
         if not isinstance(spec, dict):
             raise fail("sample", "needs a table with count, seed and a [low, high] range per parameter")
+        names = registry.member_columns(kind, fixed, set(spec) - {"count", "seed"})
         for k in spec:
             if k not in {"count", "seed", *names}:
                 raise fail(f"sample.{k}", f"unknown key (expected count, seed, {', '.join(names)})")
@@ -129,7 +145,22 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         params = lo + (hi - lo) * rng.random((count, len(names)))
         origin = {"sampler": "uniform", "generator": "numpy PCG64", "seed": seed,
                   "ranges": {n: list(r) for n, r in zip(names, ranges, strict=True)}}
-    return EnsembleSpec(index=index, name=name, kind=kind, parameters=params, origin=origin)
+    if fixed_raw:
+        origin["fixed"] = fixed_raw
+    return EnsembleSpec(index=index, name=name, kind=kind, parameters=params.reshape(len(params), len(names)),
+                        origin=origin, columns=names, fixed=fixed)
+
+
+def _csv_header(path: Path) -> set[str]:
+    """The column names of a members file (empty if it cannot be read: :func:`_read_members` says why)."""
+    try:
+        with path.open(encoding="utf-8-sig", errors="replace") as f:
+            for line in f:
+                if line.strip() and not line.strip().startswith("#"):
+                    return {h.strip() for h in line.split(",")}
+    except OSError:
+        pass
+    return set()
 
 
 def _floats(values: list) -> list[float]:

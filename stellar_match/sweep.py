@@ -430,33 +430,17 @@ def eos_from_sequence(seq: EOSSequence) -> EquationOfState:
         (the table changed since the sweep, so stars solved now would not
         belong to the stored sequence).
     """
-    from .eos import TableColumns, from_table, incompressible, polytrope, read_piecewise_polytrope
+    from .eos import registry
 
-    p = seq.parameters
-    try:
-        if seq.kind == "polytrope":
-            return polytrope(seq.name, float(p["K"]), float(p["gamma"]))
-        if seq.kind == "piecewise_polytrope":
-            return read_piecewise_polytrope(seq.name, float(p["log10_p1"]), p["gammas"])
-        if seq.kind == "incompressible":
-            return incompressible(seq.name, float(p["energy_density"]))
-        if seq.kind == "table":
-            cols = p["columns"]
-            density_kind = "baryon_density" if "baryon_density" in cols else "rest_mass_density"
-            columns = TableColumns(tuple(cols["pressure"]), tuple(cols["energy_density"]),
-                                   tuple(cols[density_kind]), density_kind)
-            eos = from_table(seq.name, p["path"], columns)
-            if seq.table_sha256 and eos.table_sha256 != seq.table_sha256:
-                raise InputError(
-                    f"table of EOS {seq.name!r} changed since the run (sha256 {eos.table_sha256[:12]}... "
-                    f"!= {seq.table_sha256[:12]}... in the run file); re-run the sweep",
-                    source=str(p["path"]),
-                )
-            return eos
-    except KeyError as exc:
-        raise InputError(f"EOS {seq.name!r}: run file lacks parameter {exc.args[0]!r}",
-                         key=f"eos/{seq.name}/parameters") from None
-    raise InputError(f"EOS {seq.name!r}: cannot rebuild kind {seq.kind!r}", key=f"eos/{seq.name}/kind")
+    eos = registry.rebuild_eos(seq.kind, seq.name, seq.parameters)
+    if seq.table_sha256 and eos.table_sha256 != seq.table_sha256:
+        path = eos.parameters.get("path") or eos.parameters.get("base", {}).get("path")
+        raise InputError(
+            f"table of EOS {seq.name!r} changed since the run (sha256 {eos.table_sha256[:12]}... "
+            f"!= {seq.table_sha256[:12]}... in the run file); re-run the sweep",
+            source=str(path),
+        )
+    return eos
 
 
 def _stable_branch(seq: EOSSequence, axis: str) -> tuple[np.ndarray, np.ndarray]:
@@ -511,7 +495,7 @@ def stars_at_masses(
         does not reach the mass (above M_max or below the lightest stable
         sample).
     """
-    axis = "central_pressure" if seq.kind == "incompressible" else "central_density"
+    axis = "central_density" if eos.density_axis else "central_pressure"
     x, m = _stable_branch(seq, axis)
     targets = np.atleast_1d(np.asarray(masses, dtype=float))
     names = [k for k in STAR_DATASETS if k != "stable"]

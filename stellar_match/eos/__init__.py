@@ -10,6 +10,7 @@
 Every name of the former module ``stellar_match.eos`` is importable from here.
 """
 
+from . import registry
 from .base import EquationOfState, InteriorJumps, central_enthalpy
 from .pieces import (
     FIRST_LAW_TOLERANCE,
@@ -44,4 +45,5 @@ __all__ = [
     "sly_crust_dividing_densities",
     "EOSStack",
     "BoundEOSStack",
+    "registry",
 ]

@@ -24,6 +24,7 @@ import numpy as np
 
 from .. import units
 from ..errors import InputError, TableError
+from . import registry
 from .base import EquationOfState
 
 __all__ = [
@@ -504,3 +505,116 @@ def from_table(name: str, path: str | Path, columns: TableColumns) -> PiecewiseP
         "baryon_mass_g": units.NEUTRON_MASS_G,
     }
     return eos
+
+
+# --- Kinds -------------------------------------------------------------------
+
+_DENSITY_KINDS = ("baryon_density", "rest_mass_density")
+
+
+def check_table_file(path: Path) -> None:
+    """Refuse a table path that is no readable CSV file (an InputError naming the key ``path``).
+
+    Checked before the table is read: a FIFO or device would block or read
+    forever, and a folder, an empty file or a binary file would otherwise
+    surface as a puzzling parse error.
+    """
+    import stat
+
+    def fail(message: str) -> InputError:
+        return InputError(f"table file {path} {message}", key="path")
+
+    try:
+        mode = path.stat().st_mode
+    except FileNotFoundError:
+        raise fail("not found") from None
+    except OSError as exc:
+        raise fail(f"cannot be read ({exc.strerror})") from None
+    if stat.S_ISDIR(mode):
+        raise fail("is a folder, not a CSV table")
+    if not stat.S_ISREG(mode):
+        raise fail("is not a regular file (a device, pipe or socket)")
+    try:
+        with path.open("rb") as f:
+            head = f.read(8192)
+    except OSError as exc:
+        raise fail(f"cannot be read ({exc.strerror or exc})") from None
+    if not head:
+        raise fail("is empty")
+    if b"\0" in head:  # text never holds NUL bytes; binaries nearly always do
+        raise fail("is a binary file, not a CSV table")
+
+
+def _parse_columns(reader: registry.KeyReader) -> TableColumns:
+    cols = reader.table("columns")
+    key = "columns"
+    allowed = {"pressure", "energy_density", *_DENSITY_KINDS}
+    for k in cols:
+        if k not in allowed:
+            raise reader.fail(f"{key}.{k}", f"unknown key (expected one of: {', '.join(sorted(allowed))})")
+    parts = {}
+    for q in ("pressure", "energy_density", *_DENSITY_KINDS):
+        if q not in cols:
+            continue
+        spec = cols[q]
+        if not isinstance(spec, dict):
+            raise reader.fail(f"{key}.{q}", f"needs a table, got {type(spec).__name__}")
+        for k in spec:
+            if k not in {"column", "unit"}:
+                raise reader.fail(f"{key}.{q}.{k}", "unknown key (expected one of: column, unit)")
+        for k in ("column", "unit"):
+            if not isinstance(spec.get(k), str):
+                raise reader.fail(f"{key}.{q}.{k}", "missing or not a string")
+        parts[q] = (spec["column"], spec["unit"])
+    for q in ("pressure", "energy_density"):
+        if q not in parts:
+            raise reader.fail(f"{key}.{q}", "missing")
+    dens = [q for q in _DENSITY_KINDS if q in parts]
+    if len(dens) != 1:
+        raise reader.fail(key, "needs exactly one of baryon_density or rest_mass_density")
+    return TableColumns(parts["pressure"], parts["energy_density"], parts[dens[0]], dens[0])
+
+
+def _build_table(name: str, options: dict) -> PiecewisePolytrope:
+    path = Path(options["path"])
+    check_table_file(path)
+    return from_table(name, path, options["columns"])
+
+
+def _rebuild_table(name: str, p: dict) -> PiecewisePolytrope:
+    cols = p["columns"]
+    density_kind = "baryon_density" if "baryon_density" in cols else "rest_mass_density"
+    columns = TableColumns(tuple(cols["pressure"]), tuple(cols["energy_density"]), tuple(cols[density_kind]),
+                           density_kind)
+    return from_table(name, p["path"], columns)
+
+
+registry.register(registry.EOSKind(
+    name="polytrope",
+    keys=("K", "gamma"),
+    required=("K", "gamma"),
+    parse=lambda r: {"K": r.number("K"), "gamma": r.number("gamma")},
+    build=lambda name, o: polytrope(name, o["K"], o["gamma"]),
+    columns=(registry.Column("K"), registry.Column("gamma")),
+    summary="p = K rho^gamma, eps = rho c^2 + p/(gamma - 1)",
+))
+registry.register(registry.EOSKind(
+    name="piecewise_polytrope",
+    keys=("log10_p1", "gammas"),
+    required=("log10_p1", "gammas"),
+    parse=lambda r: {"log10_p1": r.number("log10_p1"),
+                     "gammas": r.numbers("gammas", min_count=3, max_count=3, usage="[G1, G2, G3]")},
+    build=lambda name, o: read_piecewise_polytrope(name, o["log10_p1"], o["gammas"]),
+    columns=(registry.Column("log10_p1"),
+             registry.Column("gammas", element=lambda k: f"gamma{k + 1}", min_count=3, max_count=3)),
+    summary="Read et al. (2009) three core pieces on the SLy crust",
+))
+registry.register(registry.EOSKind(
+    name="table",
+    keys=("path", "columns"),
+    required=("path", "columns"),
+    parse=lambda r: {"path": r.path("path"), "columns": _parse_columns(r)},
+    build=_build_table,
+    rebuild=_rebuild_table,
+    summary="CSV table, power law in p(rho) per interval, eps from the first law",
+))

@@ -8,6 +8,7 @@ import numpy as np
 
 from .. import units
 from ..errors import InputError
+from . import registry
 from .base import EquationOfState
 
 __all__ = ["Incompressible", "incompressible"]
@@ -86,3 +87,15 @@ def incompressible(name: str, energy_density: float) -> Incompressible:
         parameters={"energy_density": energy_density, "energy_density_unit": "g/cm3"},
     )
 
+
+
+registry.register(registry.EOSKind(
+    name="incompressible",
+    keys=("energy_density",),
+    required=("energy_density",),
+    parse=lambda r: {"energy_density": r.number("energy_density")},
+    build=lambda name, o: incompressible(name, o["energy_density"]),
+    columns=(registry.Column("energy_density"),),
+    density_axis=lambda options: False,
+    summary="constant energy density (sweep central_pressure)",
+))
