@@ -69,6 +69,11 @@ class EnsembleSpec:
     def parameter_names(self) -> tuple[str, ...]:
         return self.columns
 
+    @property
+    def extra_datasets(self) -> tuple[str, ...]:
+        """Per-star datasets of ``schema.OPTIONAL_STAR_DATASETS`` its kind writes (e.g. core_radius)."""
+        return ENSEMBLE_KINDS[self.kind].extra_datasets
+
     def member_options(self, i: int) -> dict:
         """The options of member ``i``, as an ``[[eos]]`` block of the kind would give them."""
         return registry.member_options(self.kind, self.fixed, self.columns, self.parameters[i])
@@ -230,7 +235,8 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
 
     values = np.asarray(values, dtype=float)
     n, n_stars = stop - start, values.size
-    out: dict[str, np.ndarray] = {k: np.full((n, n_stars), np.nan) for k in STAR_DATASETS if k != "stable"}
+    star_names = [k for k in STAR_DATASETS if k != "stable"] + list(ENSEMBLE_KINDS[spec.kind].extra_datasets)
+    out: dict[str, np.ndarray] = {k: np.full((n, n_stars), np.nan) for k in star_names}
     out["stable"] = np.zeros((n, n_stars), dtype=bool)
     out["star_status"] = np.full((n, n_stars), NOT_SOLVED, dtype=np.int8)
     for k in MEMBER_SUMMARIES:

@@ -48,6 +48,7 @@ from .schema import (
     FORMAT_VERSION,
     MEMBER_STATUS,
     MEMBER_SUMMARIES,
+    OPTIONAL_STAR_DATASETS,
     STAR_DATASETS,
     STAR_STATUS,
     TARGET_DATASETS,
@@ -245,7 +246,8 @@ class RunFileWriter:
         n, m = spec.size, axis.values.size
         chunk_rows = max(1, min(n, 2**16 // max(m, 1)))
         g.attrs["star_status_meaning"] = json.dumps({str(k): v for k, v in STAR_STATUS.items()})
-        for col, (unit, meaning) in STAR_DATASETS.items():
+        star_datasets = STAR_DATASETS | {k: OPTIONAL_STAR_DATASETS[k] for k in getattr(spec, "extra_datasets", ())}
+        for col, (unit, meaning) in star_datasets.items():
             d = g.create_dataset(col, shape=(n, m), dtype=dataset_dtype(col), chunks=(chunk_rows, m))
             d.attrs["unit"] = unit
             d.attrs["description"] = meaning
@@ -253,7 +255,7 @@ class RunFileWriter:
             d = g.create_dataset(col, shape=(n,), dtype=dataset_dtype(col))
             d.attrs["unit"] = unit
         for task, arrays in parts:
-            for col in (*STAR_DATASETS, *MEMBER_SUMMARIES):
+            for col in (*star_datasets, *MEMBER_SUMMARIES):
                 g[col][task.start : task.stop] = arrays[col]
             self._flush()
 

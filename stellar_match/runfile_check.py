@@ -30,6 +30,7 @@ from .schema import (
     FORMAT,
     FORMAT_VERSION,
     MEMBER_SUMMARIES,
+    OPTIONAL_STAR_DATASETS,
     READABLE_VERSIONS,
     STAR_DATASETS,
     SUMMARY_ATTRIBUTES,
@@ -256,7 +257,9 @@ def _check_eos_group(g, where: str, version: int) -> None:
     for name, obj in g.items():
         sub = f"{where}/{name}"
         if isinstance(obj, h5py.Dataset):
-            if name not in STAR_DATASETS:  # read as a column too: it must line up with the stars
+            if name in OPTIONAL_STAR_DATASETS:
+                _dataset(g, name, sub, kind="f", ndim=1, unit=OPTIONAL_STAR_DATASETS[name][0], shape=shape)
+            elif name not in STAR_DATASETS:  # read as a column too: it must line up with the stars
                 _dataset(g, name, sub, kind="fiub", ndim=1, unit=None, shape=shape)
         elif name == "targets":
             n = _subgroup_datasets(obj, sub, TARGET_DATASETS)
@@ -315,6 +318,9 @@ def _check_ensemble_group(g, where: str, version: int) -> None:
         _dataset(g, name, f"{where}/{name}", kind=_kind_of(name), ndim=1, unit=unit, shape=(n_members,))
     for name, obj in g.items():
         if name == "members" or name in STAR_DATASETS or name in MEMBER_SUMMARIES or name == "sweep_values":
+            continue
+        if name in OPTIONAL_STAR_DATASETS:
+            _dataset(g, name, f"{where}/{name}", kind="f", ndim=2, unit=OPTIONAL_STAR_DATASETS[name][0], shape=grid)
             continue
         if not isinstance(obj, h5py.Dataset):
             raise _Problem(f"{where}/{name}", "unknown group (an ensemble holds only members)")

@@ -21,7 +21,7 @@ import numpy as np
 __all__ = [
     "FORMAT", "FORMAT_VERSION", "READABLE_VERSIONS", "STAR_DATASETS", "STAR_STATUS", "TARGET_DATASETS",
     "BINARY_DATASETS", "SUMMARY_ATTRIBUTES", "NOT_SOLVED", "MEMBER_SUMMARIES", "MEMBER_STATUS", "dataset_dtype",
-    "DATASET_SINCE_VERSION", "MAX_NAME_LENGTH", "group_name_problem",
+    "DATASET_SINCE_VERSION", "MAX_NAME_LENGTH", "group_name_problem", "OPTIONAL_STAR_DATASETS",
 ]
 
 FORMAT = "stellar_match.run"
@@ -47,6 +47,13 @@ STAR_DATASETS: dict[str, tuple[str, str]] = {
     "error_estimate": ("1", "estimated relative integration error of M and R (embedded Dormand-Prince)"),
     "star_status": ("1", "per-star quality code, 0 = within tolerance (meanings: attribute star_status_meaning)"),
     "stable": ("1", "turning-point stability (dM/d rho_c > 0, up to the first maximum)"),
+}
+#: Per-star datasets present only in groups whose EOS has a first-order phase transition (kind
+#: ``phase_transition``), in every format version: name -> (unit, meaning).  NaN for stars without a core.
+#: Readers that do not know them still accept the files (an extra 1-D column of the stars' length).
+OPTIONAL_STAR_DATASETS: dict[str, tuple[str, str]] = {
+    "core_radius": ("km", "areal radius of the core of the high-density phase (NaN: no core)"),
+    "core_mass": ("Msun", "gravitational mass m(r) inside the core of the high-density phase (NaN: no core)"),
 }
 #: Per-star status codes (dataset ``star_status``); every non-zero code comes with NaN physics columns.
 STAR_STATUS: dict[int, str] = {

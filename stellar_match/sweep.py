@@ -22,7 +22,7 @@ from .eos import EquationOfState, central_enthalpy
 from .errors import ConfigError, InputError, RunFileError, StorageError
 from .exterior import star_columns
 from .runfile import RunFileWriter
-from .schema import STAR_DATASETS, TARGET_DATASETS
+from .schema import OPTIONAL_STAR_DATASETS, STAR_DATASETS, TARGET_DATASETS
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 
@@ -165,7 +165,8 @@ def write_sequence(eos: EquationOfState, h_all: np.ndarray, chunks, sink, *, con
     ``chunks`` yields the per-star columns in sweep order; only four columns
     of the whole sequence are kept in memory for the analysis.
     """
-    sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, dict(STAR_DATASETS))
+    columns = dict(STAR_DATASETS) | (OPTIONAL_STAR_DATASETS if eos.interior_jumps is not None else {})
+    sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, columns)
     kept = {k: np.empty(h_all.size) for k in _KEPT}
     start = 0
     for cols in chunks:
@@ -173,7 +174,7 @@ def write_sequence(eos: EquationOfState, h_all: np.ndarray, chunks, sink, *, con
         for k, arr in kept.items():
             arr[start : start + n] = cols[k]
         start += n
-        sink.append(eos.name, {k: cols[k] for k in STAR_DATASETS if k != "stable"})
+        sink.append(eos.name, {k: cols[k] for k in columns if k != "stable"})
 
     def refine(hc):
         r = solve_interiors(eos, hc, control=control)
@@ -499,6 +500,8 @@ def stars_at_masses(
     x, m = _stable_branch(seq, axis)
     targets = np.atleast_1d(np.asarray(masses, dtype=float))
     names = [k for k in STAR_DATASETS if k != "stable"]
+    if eos.interior_jumps is not None:
+        names += list(OPTIONAL_STAR_DATASETS)
     out = {k: np.full(targets.size, np.nan) for k in names}
     if x.size < 2:
         return out

@@ -3,6 +3,10 @@
 * :mod:`.base` -- the interface the structure solver uses (:class:`EquationOfState`);
 * :mod:`.pieces` -- polytropes, Read et al. piecewise polytropes and tables;
 * :mod:`.uniform` -- constant energy density (Schwarzschild 1916);
+* :mod:`.smooth` -- pieces p = A + exp(polynomial in h): constant sound speed, smooth EOS;
+* :mod:`.quark` -- self-bound bag-model quark matter (Witten 1984; Farhi & Jaffe 1984);
+* :mod:`.joined` -- consecutive parts of different families (crust + core, base + new phase);
+* :mod:`.transition` -- a first-order phase transition on any base (Alford, Han & Prakash 2013);
 * :mod:`.stack` -- many members of one family solved as one batch (ensembles);
 * :mod:`.registry` -- the kinds by config name: their keys, builders,
   ensemble columns and how to rebuild them from a run file.
@@ -12,6 +16,7 @@ Every name of the former module ``stellar_match.eos`` is importable from here.
 
 from . import registry
 from .base import EquationOfState, InteriorJumps, central_enthalpy
+from .joined import JoinedEOS
 from .pieces import (
     FIRST_LAW_TOLERANCE,
     READ_CORE_DIVIDING_DENSITIES,
@@ -24,7 +29,10 @@ from .pieces import (
     read_table_file,
     sly_crust_dividing_densities,
 )
+from .quark import QuarkMatter, quark_matter
+from .smooth import ExpPolynomialPieces
 from .stack import BoundEOSStack, EOSStack
+from .transition import phase_transition, seidov_critical_jump
 from .uniform import Incompressible, incompressible
 
 __all__ = [
@@ -46,4 +54,10 @@ __all__ = [
     "EOSStack",
     "BoundEOSStack",
     "registry",
+    "ExpPolynomialPieces",
+    "QuarkMatter",
+    "quark_matter",
+    "JoinedEOS",
+    "phase_transition",
+    "seidov_critical_jump",
 ]

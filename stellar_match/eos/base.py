@@ -117,8 +117,11 @@ class EquationOfState(ABC):
 
     @staticmethod
     @abstractmethod
-    def slope_from_coefficients(p, eps, coeff) -> np.ndarray:
-        """d eps / d h = (eps + p) / c_s^2 from (p, eps) and per-point coefficients."""
+    def slope_from_coefficients(p, eps, coeff, h=None) -> np.ndarray:
+        """d eps / d h = (eps + p) / c_s^2 from (p, eps), per-point coefficients and ``h``.
+
+        Families whose slope follows from (p, eps) alone may ignore ``h``.
+        """
 
     def state(self, h) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Pressure, energy density and rest-mass density at log-enthalpy ``h``.
@@ -146,7 +149,7 @@ class EquationOfState(ABC):
         h = np.asarray(h, dtype=float)
         coeff = self.coefficients_at(h)
         p, eps, _ = self.state_from_coefficients(h, coeff)
-        return self.slope_from_coefficients(p, eps, coeff)
+        return self.slope_from_coefficients(p, eps, coeff, h)
 
     @abstractmethod
     def enthalpy_of_density(self, rho) -> np.ndarray:
@@ -184,6 +187,15 @@ def central_enthalpy(eos: EquationOfState, quantity: str, values) -> np.ndarray:
         h = eos.enthalpy_of_pressure(units.pressure_to_geometric(values))
     else:
         raise ValueError(f"unknown sweep quantity {quantity!r}")
+    if np.any(~(h > 0)):  # a self-bound EOS (quark matter) has no star below its surface density
+        low = values[np.argmin(np.where(np.isfinite(h), h, -np.inf))]
+        unit = "g/cm3" if quantity == "central_density" else "dyn/cm2"
+        surface = units.density_from_geometric(float(eos.state(np.array([0.0]))[2][0]))
+        raise InputError(
+            f"{low:.4g} {unit} is not above the surface of EOS {eos.name!r} "
+            f"(rest-mass density {surface:.4g} g/cm3 at zero pressure)",
+            key=f"sweep.{quantity}",
+        )
     if np.any(h > eos.h_max * (1 + 1e-12)):
         top = values[np.argmax(h)]
         unit = "g/cm3" if quantity == "central_density" else "dyn/cm2"

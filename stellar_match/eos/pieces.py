@@ -62,6 +62,11 @@ class PiecewisePolytrope(EquationOfState):
         Physical parameters for the run file.
     """
 
+    #: Coefficients that keep the formula finite on pieces of other families (see :mod:`.joined`):
+    #: rho = e^h, p = e^(2h).
+    NEUTRAL_COEFFICIENTS = {"K": 1.0, "c1": 1.0, "inv_gm1": 1.0, "one_plus_a": 1.0, "shift": 1.0, "mu_s": 1.0,
+                            "gamma": 2.0}
+
     name: str
     kind: str
     lower_densities: np.ndarray
@@ -135,7 +140,7 @@ class PiecewisePolytrope(EquationOfState):
         return p, eps, rho
 
     @staticmethod
-    def slope_from_coefficients(p, eps, coeff):
+    def slope_from_coefficients(p, eps, coeff, h=None):
         # c_s^2 = Gamma p / (eps + p) inside a piece, so d eps/dh = (eps + p)^2 / (Gamma p);
         # at the surface itself (p = 0) the limit is 0 for Gamma < 2, the usual crust case; for
         # Gamma > 2 it diverges, which the solver avoids by never evaluating at h = 0 exactly
@@ -148,7 +153,7 @@ class PiecewisePolytrope(EquationOfState):
         h = np.asarray(h, dtype=float)
         coeff = self.coefficients_at(h)
         p, eps, _ = self.state_from_coefficients(h, coeff)
-        return self.slope_from_coefficients(p, eps, coeff)
+        return self.slope_from_coefficients(p, eps, coeff, h)
 
     def sound_speed_squared(self, h):
         h = np.asarray(h, dtype=float)

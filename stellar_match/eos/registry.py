@@ -201,6 +201,9 @@ class EOSKind:
         ``density_axis(options) -> bool``: False if only central pressures can be swept.
     summary : str
         One line for documentation.
+    extra_datasets : tuple of str
+        Per-star datasets beyond the standard ones that every EOS of the kind
+        writes (names of ``schema.OPTIONAL_STAR_DATASETS``).
     """
 
     name: str
@@ -212,6 +215,7 @@ class EOSKind:
     columns: tuple[Column, ...] | None = None
     density_axis: Callable[[dict], bool] = field(default=lambda options: True)
     summary: str = ""
+    extra_datasets: tuple[str, ...] = ()
 
 
 #: Every kind, by config name, in registration order.

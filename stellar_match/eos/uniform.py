@@ -28,6 +28,10 @@ class Incompressible(EquationOfState):
     energy_density: float  # km^-2
     kind: str = "incompressible"
     density_axis = False  # no rest-mass density: sweep central_pressure
+    #: (eps + p)/rho at the surface, with rho taken as eps_0.
+    surface_enthalpy_per_mass = 1.0
+    #: Coefficients that keep the formula finite on pieces of other families (see :mod:`.joined`).
+    NEUTRAL_COEFFICIENTS = {"eps0": 1.0}
     parameters: dict = field(default_factory=dict)
     h_max: float = np.inf
 
@@ -52,7 +56,7 @@ class Incompressible(EquationOfState):
         return p, eps, eps
 
     @staticmethod
-    def slope_from_coefficients(p, eps, coeff):
+    def slope_from_coefficients(p, eps, coeff, h=None):
         return np.zeros_like(p)
 
     def energy_density_slope(self, h):
