@@ -195,8 +195,9 @@ REDO_ENVELOPE_FRACTION = 1e-10
 REDO_STEP_SCALE = 0.7
 #: Steps off an interior density jump: each at most JUMP_GROWTH times the distance from the
 #: centre (scaled like the start-up), out to JUMP_REACH times the jump's distance (see _integrate).
-JUMP_GROWTH = 0.15
-JUMP_REACH = 8.0
+JUMP_GROWTH = 0.08
+#: A core of the high-density phase with h_c - h_t below this fraction of h_c is left to the central series.
+JUMP_NEGLIGIBLE = 1e-12
 #: EOS values at a step edge h = 0 are taken at SURFACE_GUARD * h_c instead:
 #: d eps/dh diverges at p = 0 when the outermost piece has Gamma > 2.
 SURFACE_GUARD = 1e-12
@@ -693,6 +694,22 @@ def solve_interiors(
     return out
 
 
+def _jump_ratios(scale: float) -> np.ndarray:
+    """x / x_t of the step edges after an interior jump (x: distance from the centre in h).
+
+    Outside a core the excess mass of the core makes v relax like A (x_t/x)^(3/2), A of order
+    [eps]/eps.  A step of relative length g = dx/x errs by about A(x) g^6, so the steps grow as
+    g = JUMP_GROWTH (x/x_t)^(1/4), keeping that error even, until they reach the ordinary
+    start-up growth (0.6, times ``scale``): about 4/JUMP_GROWTH steps out to some 10^3 x_t.
+    """
+    ratios, r = [], 1.0
+    g0, top = JUMP_GROWTH * scale, DEFAULT_STEPS.startup_growth * scale
+    while g0 * r**0.25 < top:
+        r *= 1.0 + g0 * r**0.25
+        ratios.append(r)
+    return np.array(ratios)
+
+
 def _relative_error(err: np.ndarray) -> np.ndarray:
     """Relative error estimate of a star: the largest of those of R, M and M_b.
 
@@ -741,16 +758,23 @@ def _integrate(eos, h_c, control, response, envelope_fraction
     p_c, eps_c, rho_c = eos.state(h_c)
     x0 = control.start_offset * h_c
     deps_dh = eos.energy_density_slope(h_c)
-    y = central_series(p_c, eps_c, rho_c, deps_dh, x0)
     n = h_c.size
     core = np.full((2, n), np.nan)
     jumps = getattr(eos, "interior_jumps", None)
     if jumps is not None:
         jump_h, jump_de, jump_p = (np.broadcast_to(a.reshape(a.shape[0], -1), (a.shape[0], n))
                                    for a in (jumps.h, jumps.delta_eps, jumps.pressure))
-        tiny = (jump_h[0] < h_c) & (jump_h[0] >= h_c - x0)  # inside the central-series region
+        # A jump inside the central-series region: the series holds only inside the core, so it hands
+        # over just inside the jump (the step to it stays in the core; the jump is then crossed as
+        # any other).  A core below JUMP_NEGLIGIBLE h_c in h (about 1e-6 of the radius) is too small
+        # to matter: the series from the centre phase takes it, its radius and mass from the series.
+        x_t = h_c[None, :] - jump_h
+        inside = (x_t > JUMP_NEGLIGIBLE * h_c) & (x_t < x0)
+        x0 = np.min(np.where(inside, x_t * (1.0 - 1e-9), x0), axis=0)
+        tiny = (x_t[0] > 0) & (x_t[0] <= JUMP_NEGLIGIBLE * h_c)
         if tiny.any():
-            core[:, tiny] = central_series(p_c, eps_c, rho_c, deps_dh, h_c - jump_h[0])[:2, tiny]
+            core[:, tiny] = central_series(p_c, eps_c, rho_c, deps_dh, x_t[0])[:2, tiny]
+    y = central_series(p_c, eps_c, rho_c, deps_dh, x0)
     if response:
         y = np.concatenate([y, response_series(p_c, eps_c, deps_dh, h_c, x0)])
     # the start-up ends where its steps reach the local EOS node spacing
@@ -774,9 +798,7 @@ def _integrate(eos, h_c, control, response, envelope_fraction
         # for JUMP_REACH times its distance x_t (measured: M off by 4e-5 with the ordinary steps
         # for a small core under a jump of 0.35 eps_t).
         x_t = h_c[None, :] - jump_h
-        k = np.arange(1, int(np.ceil(np.log(JUMP_REACH) / np.log1p(JUMP_GROWTH * control.startup_growth
-                                                                         / DEFAULT_STEPS.startup_growth))) + 1)
-        ratio = (1.0 + JUMP_GROWTH * control.startup_growth / DEFAULT_STEPS.startup_growth) ** k
+        ratio = _jump_ratios(control.startup_growth / DEFAULT_STEPS.startup_growth)
         e = h_c[None, None, :] - x_t[:, None, :] * ratio[None, :, None]
         ok = (x_t[:, None, :] > x0[None, None, :]) & (e > 0) & np.isfinite(e)
         extra = np.where(ok, e, 0.0).reshape(-1, n)
