@@ -29,7 +29,9 @@ from .eos import (
     TableColumns,
     from_table,
     incompressible,
+    phase_transition,
     polytrope,
+    quark_matter,
     read_piecewise_polytrope,
 )
 from .errors import ConfigError, InputError, RunFileError, TableError
@@ -65,6 +67,8 @@ __all__ = [
     "incompressible",
     "polytrope",
     "read_piecewise_polytrope",
+    "quark_matter",
+    "phase_transition",
     "ConfigError",
     "InputError",
     "RunFileError",

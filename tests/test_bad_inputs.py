@@ -178,6 +178,14 @@ def constraints(id_: str, text: str, key: str) -> Case:
 
 ELLIPSE = ('[[ellipse]]\nlabel = "x"\nmass = 1.4\nradius = 12.0\nsigma_mass = 0.1\nsigma_radius = 0.5\n'
            'correlation = {rho}\n')
+QUARK = '[[eos]]\nname = "q"\nkind = "quark_matter"\n{extra}\n'
+SLY_INLINE = '{ kind = "piecewise_polytrope", log10_p1 = 34.384, gammas = [3.005, 2.988, 2.851] }'
+TABLE_INLINE = ('{ kind = "table", path = "t.csv", columns = { pressure = { column = "p", unit = "MeV/fm3" }, '
+                'energy_density = { column = "e", unit = "MeV/fm3" }, '
+                'baryon_density = { column = "nb", unit = "fm-3" } } }')
+TRANSITION = ('[[eos]]\nname = "pt"\nkind = "phase_transition"\nbase = '
+              + SLY_INLINE.replace("{", "{{").replace("}", "}}")
+              + '\ntransition_pressure = {p_t}\nenergy_density_jump = {jump}\nsound_speed_squared = {cs2}\n')
 LONG_NAME = "n" * 201
 SLY = SLY_BLOCK
 
@@ -240,6 +248,43 @@ CASES = [
                'energy_density = 1e15\n', "sweep.central_density"),
     sweep_case("ensemble_members_is_folder", AXIS5 + '[[ensemble]]\nname = "m"\nkind = "polytrope"\n'
                'members = "{folder}"\n', "ensemble[0].members"),
+    # -- config: the EOS kinds of issue 11 (one line naming the key, found before any star) ----------------
+    sweep_case("quark_bag_negative", AXIS5 + QUARK.format(extra="bag_constant = -5.0"), "eos[0].bag_constant"),
+    sweep_case("quark_bag_text", AXIS5 + QUARK.format(extra='bag_constant = "sixty"'), "eos[0].bag_constant"),
+    sweep_case("quark_bag_missing", AXIS5 + QUARK.format(extra=""), "eos[0].bag_constant", "missing"),
+    sweep_case("quark_cs2_above_1", AXIS5 + QUARK.format(extra="bag_constant = 60.0\nsound_speed_squared = 1.5"),
+               "eos[0].sound_speed_squared", "causality"),
+    sweep_case("quark_below_its_surface", AXIS5 + QUARK.format(extra="bag_constant = 60.0"),
+               "sweep.central_density", "surface"),
+    sweep_case("transition_jump_negative", AXIS5 + TRANSITION.format(p_t="1e35", jump="-1e14", cs2="1.0"),
+               "eos[0].energy_density_jump"),
+    sweep_case("transition_cs2_zero", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="0.0"),
+               "eos[0].sound_speed_squared"),
+    sweep_case("transition_pressure_negative", AXIS5 + TRANSITION.format(p_t="-1e35", jump="1e14", cs2="1.0"),
+               "eos[0].transition_pressure"),
+    sweep_case("transition_pressure_missing", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace("transition_pressure = 1e35\n", ""), "eos[0].transition_pressure", "missing"),
+    sweep_case("transition_beyond_the_base_table",
+               AXIS5 + TRANSITION.format(p_t="1e38", jump="1e14", cs2="1.0").replace(SLY_INLINE, TABLE_INLINE),
+               "eos[0].transition_pressure", "beyond", files={"t.csv": MEDIUM_TABLE.read_bytes()}),
+    sweep_case("transition_base_missing", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace(f"base = {SLY_INLINE}\n", ""), "eos[0].base", "missing"),
+    sweep_case("transition_base_kind_unknown", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace(SLY_INLINE, '{ kind = "quark_bag" }'), "eos[0].base.kind"),
+    sweep_case("transition_base_nested", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace(SLY_INLINE, '{ kind = "phase_transition" }'), "eos[0].base.kind"),
+    sweep_case("transition_base_key_missing", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace(SLY_INLINE, '{ kind = "polytrope", K = 1e5 }'), "eos[0].base.gamma", "missing"),
+    sweep_case("transition_base_bad_value", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace("log10_p1 = 34.384", "log10_p1 = 20.0"), "eos[0].base.log10_p1"),
+    sweep_case("transition_base_table_missing", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace(SLY_INLINE, TABLE_INLINE), "eos[0].base.path", "t.csv"),
+    sweep_case("transition_ensemble_without_base", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "phase_transition"\n'
+               'sound_speed_squared = 1.0\n[ensemble.sample]\ncount = 2\nseed = 1\n'
+               'transition_pressure = [5e34, 1e35]\nenergy_density_jump = [1e14, 2e14]\n', "ensemble[0].base"),
+    sweep_case("quark_ensemble_column_missing", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "quark_matter"\n'
+               'members = "m.csv"\n', "ensemble[0].members", "bag_constant",
+               files={"m.csv": "sound_speed_squared\n0.3\n"}),
     # -- table files ------------------------------------------------------------------
     sweep_case("table_is_a_folder", AXIS5 + TABLE_BLOCK.format(path="{folder}"), "eos[0].path", "is a folder"),
     sweep_case("table_is_dev_null", AXIS5 + TABLE_BLOCK.format(path="/dev/null"), "eos[0].path", "/dev/null"),

@@ -144,3 +144,26 @@ def test_bad_parameters_name_their_key():
     with pytest.raises(InputError) as info:
         phase_transition("pt2", phase_transition("pt", base, P_T, 1e14, 1.0), 2 * P_T, 1e14, 1.0)
     assert info.value.key == "base.kind"
+
+
+def test_twin_stars_form_a_third_family():
+    # A large jump (1.2 eps_t, above Seidov's 0.5 eps_t + 1.5 p_t) into a stiff phase (c_s^2 = 1) at
+    # 1.5e35 dyn/cm^2: the hybrid branch turns unstable at once and then stable again, a third family
+    # whose stars have the masses of first-family stars at smaller radii ("twins"; Glendenning &
+    # Kettner 2000, A&A 353, L9; Alford, Han & Prakash 2013).  The turning-point flags must show two
+    # stable branches (Bardeen, Thorne & Meltzer 1966), the second one with cores.
+    p_t = 1.5e35
+    eps_t = phase_transition("probe", _sly(), p_t, 0.0, 1.0).parameters["transition_energy_density"]
+    eos = phase_transition("twins", _sly(), p_t, 1.2 * eps_t, 1.0)
+    seq = sm.sweep_eos(eos, "central_pressure", np.geomspace(2e34, 1e37, 40))
+    stable, core = seq.stable, np.isfinite(seq["core_radius"])
+    edges = np.flatnonzero(np.diff(stable.astype(int)))
+    assert stable[0] and len(edges) == 3, stable  # stable, unstable, stable, unstable
+    first, third = np.arange(edges[0] + 1), np.arange(edges[1] + 1, edges[2] + 1)
+    assert not core[first].any() and core[third].all()
+    m1, r1 = seq["mass"][first], seq["radius"][first]
+    m3, r3 = seq["mass"][third], seq["radius"][third]
+    assert m3.min() < m1.max()  # a mass range with two stable stars ...
+    twin = m3 < m1.max()
+    assert np.all(np.interp(m3[twin], m1, r1) - r3[twin] > 1.0)  # ... more than 1 km apart in radius
+    assert seq.summary["max_mass"] == pytest.approx(m3.max(), rel=1e-3)  # the largest stable maximum
