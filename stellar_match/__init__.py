@@ -33,6 +33,7 @@ from .eos import (
     polytrope,
     quark_matter,
     read_piecewise_polytrope,
+    spectral,
 )
 from .errors import ConfigError, InputError, RunFileError, TableError
 from .runfile import RunFile, read_run
@@ -69,6 +70,7 @@ __all__ = [
     "read_piecewise_polytrope",
     "quark_matter",
     "phase_transition",
+    "spectral",
     "ConfigError",
     "InputError",
     "RunFileError",

@@ -179,6 +179,7 @@ def constraints(id_: str, text: str, key: str) -> Case:
 ELLIPSE = ('[[ellipse]]\nlabel = "x"\nmass = 1.4\nradius = 12.0\nsigma_mass = 0.1\nsigma_radius = 0.5\n'
            'correlation = {rho}\n')
 QUARK = '[[eos]]\nname = "q"\nkind = "quark_matter"\n{extra}\n'
+SPECTRAL = '[[eos]]\nname = "s"\nkind = "spectral"\n{extra}\n'
 SLY_INLINE = '{ kind = "piecewise_polytrope", log10_p1 = 34.384, gammas = [3.005, 2.988, 2.851] }'
 TABLE_INLINE = ('{ kind = "table", path = "t.csv", columns = { pressure = { column = "p", unit = "MeV/fm3" }, '
                 'energy_density = { column = "e", unit = "MeV/fm3" }, '
@@ -285,6 +286,14 @@ CASES = [
     sweep_case("quark_ensemble_column_missing", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "quark_matter"\n'
                'members = "m.csv"\n', "ensemble[0].members", "bag_constant",
                files={"m.csv": "sound_speed_squared\n0.3\n"}),
+    sweep_case("spectral_one_gamma", AXIS5 + SPECTRAL.format(extra="gammas = [1.0]"), "eos[0].gammas", "2 to 4"),
+    sweep_case("spectral_five_gammas", AXIS5 + SPECTRAL.format(extra="gammas = [1, 0, 0, 0, 0]"), "eos[0].gammas"),
+    sweep_case("spectral_gamma_vanishes", AXIS5 + SPECTRAL.format(extra="gammas = [1.0, -1.5]"), "eos[0].gammas",
+               "vanish"),
+    sweep_case("spectral_reference_pressure_in_the_core", AXIS5 + SPECTRAL.format(
+        extra="gammas = [1.0, 0.1]\nreference_pressure = 1e36"), "eos[0].reference_pressure"),
+    sweep_case("spectral_ensemble_gamma1_missing", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "spectral"\n'
+               '[ensemble.sample]\ncount = 2\nseed = 1\ngamma0 = [0.9, 1.0]\n', "ensemble[0].sample.gamma1"),
     # -- table files ------------------------------------------------------------------
     sweep_case("table_is_a_folder", AXIS5 + TABLE_BLOCK.format(path="{folder}"), "eos[0].path", "is a folder"),
     sweep_case("table_is_dev_null", AXIS5 + TABLE_BLOCK.format(path="/dev/null"), "eos[0].path", "/dev/null"),

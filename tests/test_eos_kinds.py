@@ -27,6 +27,9 @@ CASES = {
     "phase_transition": (f"base = {SLY_BASE}\ntransition_pressure = 1.0e35\nenergy_density_jump = 3.0e14\n"
                          "sound_speed_squared = 1.0", f"base = {SLY_BASE}\nsound_speed_squared = 1.0",
                          {"transition_pressure": (1.0e35, 6.0e34), "energy_density_jump": (3.0e14, 5.0e14)}),
+    "spectral": ("gammas = [0.9865, 0.1110, -0.0301, 0.0022]", "",
+                 {"gamma0": (0.9865, 1.0), "gamma1": (0.1110, 0.12), "gamma2": (-0.0301, -0.02),
+                  "gamma3": (0.0022, 0.001)}),
 }
 AXIS = "[sweep]\ncentral_density = { min = 6e14, max = 2.5e15, count = 6 }\n"
 

@@ -7,6 +7,7 @@
 * :mod:`.quark` -- self-bound bag-model quark matter (Witten 1984; Farhi & Jaffe 1984);
 * :mod:`.joined` -- consecutive parts of different families (crust + core, base + new phase);
 * :mod:`.transition` -- a first-order phase transition on any base (Alford, Han & Prakash 2013);
+* :mod:`.spectral_index` -- Lindblom's (2010) spectral adiabatic index on the SLy crust fit;
 * :mod:`.stack` -- many members of one family solved as one batch (ensembles);
 * :mod:`.registry` -- the kinds by config name: their keys, builders,
   ensemble columns and how to rebuild them from a run file.
@@ -31,6 +32,7 @@ from .pieces import (
 )
 from .quark import QuarkMatter, quark_matter
 from .smooth import ExpPolynomialPieces
+from .spectral_index import spectral
 from .stack import BoundEOSStack, EOSStack
 from .transition import phase_transition, seidov_critical_jump
 from .uniform import Incompressible, incompressible
@@ -60,4 +62,5 @@ __all__ = [
     "JoinedEOS",
     "phase_transition",
     "seidov_critical_jump",
+    "spectral",
 ]

@@ -37,6 +37,7 @@ __all__ = [
     "TableColumns",
     "read_table_file",
     "sly_crust_dividing_densities",
+    "sly_crust",
     "FIRST_LAW_TOLERANCE",
 ]
 
@@ -222,6 +223,17 @@ def sly_crust_dividing_densities() -> np.ndarray:
     K = np.array([k for k, _, _ in SLY_CRUST])
     g = np.array([g for _, g, _ in SLY_CRUST])
     return (K[:-1] / K[1:]) ** (1.0 / (g[1:] - g[:-1]))
+
+
+def sly_crust(name: str, kind: str) -> PiecewisePolytrope:
+    """The four-piece SLy crust fit of Read et al. (2009, Table II), its last piece continued upwards.
+
+    The crust of the spectral and sound-speed kinds, which join it where their own core begins.
+    """
+    g = np.array([g for _, g, _ in SLY_CRUST])
+    K = _geometric_K(np.array([k for k, _, _ in SLY_CRUST]) * _C2_CGS, g)  # p/c^2 -> dyn/cm^2
+    lower = np.array([0.0, *sly_crust_dividing_densities()]) * units.DENSITY_CGS_TO_GEOM
+    return PiecewisePolytrope(name=name, kind=kind, lower_densities=lower, K=K, gamma=g)
 
 
 def polytrope(name: str, K: float, gamma: float) -> PiecewisePolytrope:
