@@ -33,6 +33,7 @@ from .eos import (
     polytrope,
     quark_matter,
     read_piecewise_polytrope,
+    sound_speed_nodes,
     spectral,
 )
 from .errors import ConfigError, InputError, RunFileError, TableError
@@ -71,6 +72,7 @@ __all__ = [
     "quark_matter",
     "phase_transition",
     "spectral",
+    "sound_speed_nodes",
     "ConfigError",
     "InputError",
     "RunFileError",

@@ -112,6 +112,10 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
     fixed_raw = {k: block[k] for k in kind_keys if k in block}
     if ("members" in block) == ("sample" in block):
         raise fail("", "needs exactly one of members (a CSV file) or [ensemble.sample]")
+
+    def nothing_varies() -> ConfigError:
+        return fail("", f"every key of kind {kind!r} is given in the block or left at its default: nothing "
+                    f"varies between members")
     if "members" in block:
         path = block["members"]
         if not isinstance(path, str) or not path:
@@ -120,6 +124,8 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         if not p.is_absolute() and base_dir is not None:
             p = base_dir / p
         names = registry.member_columns(kind, fixed, _csv_header(p))
+        if not names:
+            raise nothing_varies()
         params, sha = _read_members(p, names, source, f"{key}.members")
         origin = {"members": str(p), "members_sha256": sha}
     else:
@@ -127,6 +133,8 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         if not isinstance(spec, dict):
             raise fail("sample", "needs a table with count, seed and a [low, high] range per parameter")
         names = registry.member_columns(kind, fixed, set(spec) - {"count", "seed"})
+        if not names:
+            raise nothing_varies()
         for k in spec:
             if k not in {"count", "seed", *names}:
                 raise fail(f"sample.{k}", f"unknown key (expected count, seed, {', '.join(names)})")

@@ -180,6 +180,7 @@ ELLIPSE = ('[[ellipse]]\nlabel = "x"\nmass = 1.4\nradius = 12.0\nsigma_mass = 0.
            'correlation = {rho}\n')
 QUARK = '[[eos]]\nname = "q"\nkind = "quark_matter"\n{extra}\n'
 SPECTRAL = '[[eos]]\nname = "s"\nkind = "spectral"\n{extra}\n'
+NODES = '[[eos]]\nname = "n"\nkind = "sound_speed_nodes"\ndensities = {rho}\nsound_speed_squared = {cs2}\n'
 SLY_INLINE = '{ kind = "piecewise_polytrope", log10_p1 = 34.384, gammas = [3.005, 2.988, 2.851] }'
 TABLE_INLINE = ('{ kind = "table", path = "t.csv", columns = { pressure = { column = "p", unit = "MeV/fm3" }, '
                 'energy_density = { column = "e", unit = "MeV/fm3" }, '
@@ -294,6 +295,19 @@ CASES = [
         extra="gammas = [1.0, 0.1]\nreference_pressure = 1e36"), "eos[0].reference_pressure"),
     sweep_case("spectral_ensemble_gamma1_missing", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "spectral"\n'
                '[ensemble.sample]\ncount = 2\nseed = 1\ngamma0 = [0.9, 1.0]\n', "ensemble[0].sample.gamma1"),
+    sweep_case("nodes_not_increasing", AXIS5 + NODES.format(rho="[3e14, 2e14]", cs2="[0.3, 0.4]"),
+               "eos[0].densities", "increase"),
+    sweep_case("nodes_lengths_differ", AXIS5 + NODES.format(rho="[2e14, 4e14]", cs2="[0.3]"),
+               "eos[0].sound_speed_squared", "one value per node"),
+    sweep_case("nodes_acausal", AXIS5 + NODES.format(rho="[2e14, 4e14]", cs2="[0.3, 1.01]"),
+               "eos[0].sound_speed_squared", "causality"),
+    sweep_case("nodes_join_in_the_outer_crust", AXIS5 + NODES.format(rho="[1e10, 4e14]", cs2="[0.3, 0.5]"),
+               "eos[0].densities"),
+    sweep_case("nodes_ensemble_without_densities", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "sound_speed_nodes"\n'
+               'members = "m.csv"\n', "ensemble[0].densities", "missing", files={"m.csv": "cs2_0\n0.3\n"}),
+    sweep_case("nodes_ensemble_nothing_varies", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "sound_speed_nodes"\n'
+               'densities = [2e14, 4e14]\nsound_speed_squared = [0.3, 0.5]\nmembers = "m.csv"\n', "ensemble[0]",
+               "nothing varies", files={"m.csv": "x\n1\n"}),
     # -- table files ------------------------------------------------------------------
     sweep_case("table_is_a_folder", AXIS5 + TABLE_BLOCK.format(path="{folder}"), "eos[0].path", "is a folder"),
     sweep_case("table_is_dev_null", AXIS5 + TABLE_BLOCK.format(path="/dev/null"), "eos[0].path", "/dev/null"),

@@ -30,6 +30,9 @@ CASES = {
     "spectral": ("gammas = [0.9865, 0.1110, -0.0301, 0.0022]", "",
                  {"gamma0": (0.9865, 1.0), "gamma1": (0.1110, 0.12), "gamma2": (-0.0301, -0.02),
                   "gamma3": (0.0022, 0.001)}),
+    "sound_speed_nodes": ("densities = [1.5e14, 4e14, 1e15]\nsound_speed_squared = [0.1, 0.5, 0.4]",
+                          "densities = [1.5e14, 4e14, 1e15]",
+                          {"cs2_0": (0.1, 0.2), "cs2_1": (0.5, 0.6), "cs2_2": (0.4, 0.3)}),
 }
 AXIS = "[sweep]\ncentral_density = { min = 6e14, max = 2.5e15, count = 6 }\n"
 

@@ -7,6 +7,7 @@
 * :mod:`.quark` -- self-bound bag-model quark matter (Witten 1984; Farhi & Jaffe 1984);
 * :mod:`.joined` -- consecutive parts of different families (crust + core, base + new phase);
 * :mod:`.transition` -- a first-order phase transition on any base (Alford, Han & Prakash 2013);
+* :mod:`.sound_speed` -- squared sound speed at nodes in ln n on the SLy crust fit;
 * :mod:`.spectral_index` -- Lindblom's (2010) spectral adiabatic index on the SLy crust fit;
 * :mod:`.stack` -- many members of one family solved as one batch (ensembles);
 * :mod:`.registry` -- the kinds by config name: their keys, builders,
@@ -32,6 +33,7 @@ from .pieces import (
 )
 from .quark import QuarkMatter, quark_matter
 from .smooth import ExpPolynomialPieces
+from .sound_speed import sound_speed_nodes
 from .spectral_index import spectral
 from .stack import BoundEOSStack, EOSStack
 from .transition import phase_transition, seidov_critical_jump
@@ -63,4 +65,5 @@ __all__ = [
     "phase_transition",
     "seidov_critical_jump",
     "spectral",
+    "sound_speed_nodes",
 ]

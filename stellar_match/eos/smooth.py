@@ -31,8 +31,8 @@ import numpy as np
 
 from .base import EquationOfState
 
-__all__ = ["ExpPolynomialPieces", "constant_sound_speed_coefficients", "quintic_hermite_coefficients",
-           "DEGREE"]
+__all__ = ["ExpPolynomialPieces", "SmoothPieces", "constant_sound_speed_coefficients",
+           "quintic_hermite_coefficients", "DEGREE"]
 
 #: Highest power of t in a piece's P(t).
 DEGREE = 5
@@ -103,6 +103,8 @@ class ExpPolynomialPieces(EquationOfState):
     #: Coefficients that keep the formula finite on pieces of other families (see :mod:`.joined`).
     NEUTRAL_COEFFICIENTS = {"t0": 0.0, "A": 0.0, "q0": 0.0, "q1": 1.0, "q2": 0.0, "q3": 0.0, "q4": 0.0, "q5": 0.0,
                             "inv_mu_s": 1.0}
+
+    _closed_form_inversion = True
 
     name: str
     kind: str
@@ -177,12 +179,16 @@ class ExpPolynomialPieces(EquationOfState):
         coeff = {k: v[j] for k, v in self._coeff.items()}
         lo = self.lower_h[j]
         hi = np.append(self.lower_h[1:], np.inf)[j]
-        linear = np.all([coeff[f"q{k}"] == 0 for k in range(2, DEGREE + 1)], axis=0)
-        with np.errstate(all="ignore"):
-            if which == 0:
-                t_lin = (np.log(target - coeff["A"]) - coeff["q0"]) / coeff["q1"]
-            else:
-                t_lin = (np.log(target / (coeff["inv_mu_s"] * coeff["q1"])) - coeff["q0"] + lo) / (coeff["q1"] - 1.0)
+        linear = np.zeros(target.shape, dtype=bool)
+        t_lin = np.zeros(target.shape)
+        if self._closed_form_inversion:
+            linear = np.all([coeff[f"q{k}"] == 0 for k in range(2, DEGREE + 1)], axis=0)
+            with np.errstate(all="ignore"):
+                if which == 0:
+                    t_lin = (np.log(target - coeff["A"]) - coeff["q0"]) / coeff["q1"]
+                else:
+                    t_lin = (np.log(target / (coeff["inv_mu_s"] * coeff["q1"])) - coeff["q0"] + lo) \
+                        / (coeff["q1"] - 1.0)
         h = np.where(linear, lo + t_lin, np.where(np.isfinite(hi), 0.5 * (lo + hi), lo + 0.1))
         todo = ~linear
         bracket_lo, bracket_hi = lo.copy(), np.where(np.isfinite(hi), hi, np.inf)
@@ -226,3 +232,103 @@ class ExpPolynomialPieces(EquationOfState):
         h = (inside[:, None] + (ends - inside)[:, None] * u[None, :]).ravel()
         h = h[h > 0]
         return float(np.max(self.sound_speed_squared(h))) if h.size else 0.0
+
+
+@dataclass(eq=False)
+class SmoothPieces(ExpPolynomialPieces):
+    """Pieces p = exp(P_j(t)) with t = ln((mu - m_j)/(mu_j - m_j)): smooth EOS known at knots.
+
+    mu = mu_s e^h is the enthalpy per rest mass and mu_j its value at the start h_j of piece j.
+    Inside a polytropic piece mu - (1 + a) is proportional to rho^(Gamma - 1) and ln p is exactly
+    linear in ln(mu - (1 + a)) (Read et al. 2009, eqs. 3-7), so with the shift m_j taken from the
+    local adiabatic index Gamma_j = c_s^2 (eps + p)/p at the piece's start,
+
+        m_j = mu_j - Gamma_j/(Gamma_j - 1) p_j/rho_j   (0 if Gamma_j <= 1.05),
+
+    P_j(t) is nearly linear wherever Gamma varies slowly, and quintic Hermite pieces in t (matching
+    ln p and its first two derivatives at both knots) are some 100 times more accurate than in h
+    for the same knots (measured for the sound-speed kind).  With t = log1p(B (e^(h - h_j) - 1)),
+    B = mu_j/(mu_j - m_j), and D = dt/dh = mu/(mu - m_j):
+
+        eps + p = P_t D e^P,    d eps/dh = D^2 (P_tt + P_t^2 - P_t) e^P,
+        c_s^2 = P_t / (D (P_tt + P_t^2 - P_t)),    rho = (eps + p) e^(-h) / mu_s.
+
+    Parameters are those of :class:`ExpPolynomialPieces` (``offset`` all zero) plus ``shift`` m_j;
+    build them with :meth:`from_knots`.
+    """
+
+    NEUTRAL_COEFFICIENTS = {"E0": 1.0, "B": 1.0, "q0": 0.0, "q1": 1.0, "q2": 0.0, "q3": 0.0, "q4": 0.0, "q5": 0.0,
+                            "inv_mu_s": 1.0}
+    _closed_form_inversion = False
+
+    shift: np.ndarray = None
+
+    def __post_init__(self) -> None:
+        super().__post_init__()
+        mu_j = self.surface_enthalpy_per_mass * np.exp(self.lower_h)
+        B = mu_j / (mu_j - np.asarray(self.shift, dtype=float))
+        c = self.coefficients
+        self._coeff = {"E0": np.exp(-self.lower_h), "B": B, **{f"q{k}": c[:, k] for k in range(DEGREE + 1)},
+                       "inv_mu_s": np.full(self.lower_h.size, 1.0 / self.surface_enthalpy_per_mass)}
+
+    @classmethod
+    def from_knots(cls, name: str, kind: str, h, p, eps, cs2, surface_enthalpy_per_mass: float,
+                   h_max: float) -> SmoothPieces:
+        """Pieces through knots (h, p, eps, c_s^2), ascending in h (geometric units); the last knot ends them."""
+        h, p, eps, cs2 = (np.asarray(a, dtype=float) for a in (h, p, eps, cs2))
+        w = eps + p
+        mu = surface_enthalpy_per_mass * np.exp(h)
+        rho = w / mu
+        gamma = cs2 * w / p
+        with np.errstate(divide="ignore", invalid="ignore"):
+            m = np.where(gamma > 1.05, mu - gamma / (gamma - 1.0) * p / rho, 0.0)[:-1]
+        B = mu[:-1] / (mu[:-1] - m)
+        width = np.log1p(B * np.expm1(np.diff(h)))
+        lnp, p_h, p_hh = log_pressure_derivatives(p, eps, cs2)
+
+        def in_t(d_h, dd_h, D):
+            p_t = d_h / D
+            return p_t, (dd_h - p_t * D * (1.0 - D)) / D**2
+
+        d0, d1 = B, mu[1:] / (mu[1:] - m)
+        left = (lnp[:-1], *in_t(p_h[:-1], p_hh[:-1], d0))
+        right = (lnp[1:], *in_t(p_h[1:], p_hh[1:], d1))
+        coefficients = quintic_hermite_coefficients(width, left, right)
+        return cls(name=name, kind=kind, lower_h=h[:-1], offset=np.zeros(h.size - 1), coefficients=coefficients,
+                   surface_enthalpy_per_mass=surface_enthalpy_per_mass, h_max=h_max, shift=m)
+
+    @staticmethod
+    def _t_and_d(h, coeff, em1):
+        x = (1.0 + em1) * coeff["E0"] - 1.0  # e^(h - h_j) - 1; its absolute error is what matters
+        bx = coeff["B"] * x
+        return np.log1p(bx), coeff["B"] * (1.0 + x) / (1.0 + bx)
+
+    @staticmethod
+    def _polynomial(t, coeff):
+        c1, c2, c3, c4, c5 = coeff["q1"], coeff["q2"], coeff["q3"], coeff["q4"], coeff["q5"]
+        big_p = ((((c5 * t + c4) * t + c3) * t + c2) * t + c1) * t + coeff["q0"]
+        dp = (((5.0 * c5 * t + 4.0 * c4) * t + 3.0 * c3) * t + 2.0 * c2) * t + c1
+        ddp = ((20.0 * c5 * t + 12.0 * c4) * t + 6.0 * c3) * t + 2.0 * c2
+        return big_p, dp, ddp
+
+    @staticmethod
+    def state_from_coefficients(h, coeff, expm1_h=None):
+        em1 = np.expm1(h) if expm1_h is None else expm1_h
+        t, D = SmoothPieces._t_and_d(h, coeff, em1)
+        big_p, dp, _ = SmoothPieces._polynomial(t, coeff)
+        p = np.exp(big_p)
+        w = dp * D * p
+        return p, w - p, w * coeff["inv_mu_s"] / (1.0 + em1)
+
+    @staticmethod
+    def slope_from_coefficients(p, eps, coeff, h=None):
+        t, D = SmoothPieces._t_and_d(h, coeff, np.expm1(h))
+        _, dp, ddp = SmoothPieces._polynomial(t, coeff)
+        return D * D * (ddp + dp * dp - dp) * p
+
+    def sound_speed_squared(self, h):
+        h = np.asarray(h, dtype=float)
+        coeff = self.coefficients_at(h)
+        t, D = self._t_and_d(h, coeff, np.expm1(h))
+        _, dp, ddp = self._polynomial(t, coeff)
+        return dp / (D * (ddp + dp * dp - dp))

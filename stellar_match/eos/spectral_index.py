@@ -14,11 +14,12 @@ With p = p_0 e^x the first law gives the ordinary differential equations
 integrated here once, when the EOS is built, by solve_ivp (DOP853, rtol
 1e-13) from x = 0 to p = SPECTRAL_MAX_PRESSURE (or to where Gamma -> 0 lets
 eps run away: the EOS ends there, ``h_max``).  The result is represented by
-quintic Hermite pieces of ln p in h (:mod:`.smooth`) on knots every
+quintic Hermite pieces of ln p (:class:`.smooth.SmoothPieces`) on knots every
 KNOT_SPACING in x, exact in p, eps and c_s^2 = Gamma p/(eps + p) at the knots
 and thermodynamically consistent in between; between knots they deviate
-from the ODE solution by about 1e-10 in p and 5e-9 in eps (the error falls
-as the sixth power of the spacing: 1e-6 in eps at 0.25; tests/test_spectral.py).
+from the ODE solution by about 4e-11 in p, 2e-9 in eps and 1e-7 in c_s^2
+(tests/test_spectral.py), at about the cost of a piecewise polytrope (each
+knot is a step edge; the pieces replace the solver's density nodes).
 """
 
 from __future__ import annotations
@@ -32,7 +33,7 @@ from ..errors import InputError
 from . import registry
 from .joined import JoinedEOS
 from .pieces import sly_crust
-from .smooth import ExpPolynomialPieces, log_pressure_derivatives, quintic_hermite_coefficients
+from .smooth import SmoothPieces
 
 __all__ = ["spectral", "DEFAULT_REFERENCE_PRESSURE", "spectral_solution"]
 
@@ -45,7 +46,7 @@ JOIN_DENSITY_RANGE = (2.6278e12, 5.0e14)
 #: The spectral part is built up to this pressure (dyn/cm^2), far above the centre of any stable star.
 SPECTRAL_MAX_PRESSURE = 1.0e38
 #: Knot spacing in x = ln(p / p_0) of the Hermite representation.
-KNOT_SPACING = 0.1
+KNOT_SPACING = 0.2
 
 
 def _adiabatic_index(gammas: np.ndarray, x):
@@ -132,19 +133,16 @@ def spectral(name: str, gammas, reference_pressure: float = DEFAULT_REFERENCE_PR
     x, eps, dh, p = x[:last], eps[:last], dh[:last], p[:last]
     with np.errstate(all="ignore"):
         cs2 = _adiabatic_index(g, x) * p / (eps + p)
-        f = log_pressure_derivatives(p, eps, cs2)
         h = h0 + dh
-        coefficients = quintic_hermite_coefficients(np.diff(h), tuple(a[:-1] for a in f), tuple(a[1:] for a in f))
-    if not np.all(np.isfinite(coefficients)):
+        core = SmoothPieces.from_knots(name, "spectral", h, p, eps, cs2, crust.surface_enthalpy_per_mass,
+                                       h_max=float(h[-1]))
+    if not np.all(np.isfinite(core.coefficients)):
         raise InputError(f"gammas {[float(v) for v in g]} make Gamma(x) overflow below "
                          f"{SPECTRAL_MAX_PRESSURE:.0e} dyn/cm2", key="gammas")
-    core = ExpPolynomialPieces(name=name, kind="spectral", lower_h=h[:-1], offset=np.zeros(h.size - 1),
-                               coefficients=coefficients, surface_enthalpy_per_mass=crust.surface_enthalpy_per_mass,
-                               h_max=float(h[-1]))
     eos = JoinedEOS(name=name, kind="spectral", parts=[crust, core], joins=[h0], parameters={
         "gammas": [float(v) for v in g], "reference_pressure": p0_cgs, "reference_pressure_unit": "dyn/cm2",
         "crust": "SLy (Read et al. 2009)", "maximum_pressure": float(units.pressure_from_geometric(p[-1])),
-        "representation": f"quintic Hermite pieces of ln p in h, knots every {KNOT_SPACING} in ln p",
+        "representation": f"quintic Hermite pieces of ln p, knots every {KNOT_SPACING} in ln p",
     })
     eos.density_range = (0.0, float(units.density_from_geometric(eos.state(np.array([eos.h_max]))[2][0])))
     return eos
