@@ -231,3 +231,4 @@ def hybrid_star_in_radius(eos, h_c: float, rtol: float = 1e-11, smear: float = 1
     J = vp / j_R / 6
     I = J / (om + 2 * J / R**3)
     return R, M, Mb, k2, 2 / 3 * k2 / C**5, I, core[0], core[1]
+

@@ -180,6 +180,7 @@ ELLIPSE = ('[[ellipse]]\nlabel = "x"\nmass = 1.4\nradius = 12.0\nsigma_mass = 0.
            'correlation = {rho}\n')
 QUARK = '[[eos]]\nname = "q"\nkind = "quark_matter"\n{extra}\n'
 SPECTRAL = '[[eos]]\nname = "s"\nkind = "spectral"\n{extra}\n'
+ELECTRONS = '[[eos]]\nname = "wd"\nkind = "electron_gas"\n{extra}\n'
 NODES = '[[eos]]\nname = "n"\nkind = "sound_speed_nodes"\ndensities = {rho}\nsound_speed_squared = {cs2}\n'
 SLY_INLINE = '{ kind = "piecewise_polytrope", log10_p1 = 34.384, gammas = [3.005, 2.988, 2.851] }'
 TABLE_INLINE = ('{ kind = "table", path = "t.csv", columns = { pressure = { column = "p", unit = "MeV/fm3" }, '
@@ -308,6 +309,12 @@ CASES = [
     sweep_case("nodes_ensemble_nothing_varies", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "sound_speed_nodes"\n'
                'densities = [2e14, 4e14]\nsound_speed_squared = [0.3, 0.5]\nmembers = "m.csv"\n', "ensemble[0]",
                "nothing varies", files={"m.csv": "x\n1\n"}),
+    sweep_case("electrons_mu_e_below_1", AXIS5 + ELECTRONS.format(extra="mu_e = 0.5"), "eos[0].mu_e"),
+    sweep_case("electrons_coulomb_text", AXIS5 + ELECTRONS.format(extra='mu_e = 2.0\ncoulomb_correction = "yes"'),
+               "eos[0].coulomb_correction", "true or false"),
+    sweep_case("electrons_charge_zero", AXIS5 + ELECTRONS.format(
+        extra="mu_e = 2.0\ncoulomb_correction = true\nnuclear_charge = 0"), "eos[0].nuclear_charge"),
+    sweep_case("electrons_mu_e_missing", AXIS5 + ELECTRONS.format(extra=""), "eos[0].mu_e", "missing"),
     # -- table files ------------------------------------------------------------------
     sweep_case("table_is_a_folder", AXIS5 + TABLE_BLOCK.format(path="{folder}"), "eos[0].path", "is a folder"),
     sweep_case("table_is_dev_null", AXIS5 + TABLE_BLOCK.format(path="/dev/null"), "eos[0].path", "/dev/null"),

@@ -33,6 +33,8 @@ CASES = {
     "sound_speed_nodes": ("densities = [1.5e14, 4e14, 1e15]\nsound_speed_squared = [0.1, 0.5, 0.4]",
                           "densities = [1.5e14, 4e14, 1e15]",
                           {"cs2_0": (0.1, 0.2), "cs2_1": (0.5, 0.6), "cs2_2": (0.4, 0.3)}),
+    "electron_gas": ("mu_e = 2.0\ncoulomb_correction = true", "coulomb_correction = true",
+                     {"mu_e": (2.0, 2.15)}),
 }
 AXIS = "[sweep]\ncentral_density = { min = 6e14, max = 2.5e15, count = 6 }\n"
 

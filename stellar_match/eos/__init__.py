@@ -7,6 +7,7 @@
 * :mod:`.quark` -- self-bound bag-model quark matter (Witten 1984; Farhi & Jaffe 1984);
 * :mod:`.joined` -- consecutive parts of different families (crust + core, base + new phase);
 * :mod:`.transition` -- a first-order phase transition on any base (Alford, Han & Prakash 2013);
+* :mod:`.electrons` -- cold white-dwarf matter (Chandrasekhar 1935; Salpeter 1961);
 * :mod:`.sound_speed` -- squared sound speed at nodes in ln n on the SLy crust fit;
 * :mod:`.spectral_index` -- Lindblom's (2010) spectral adiabatic index on the SLy crust fit;
 * :mod:`.stack` -- many members of one family solved as one batch (ensembles);
@@ -18,6 +19,7 @@ Every name of the former module ``stellar_match.eos`` is importable from here.
 
 from . import registry
 from .base import EquationOfState, InteriorJumps, central_enthalpy
+from .electrons import ElectronGas, electron_gas
 from .joined import JoinedEOS
 from .pieces import (
     FIRST_LAW_TOLERANCE,
@@ -66,4 +68,6 @@ __all__ = [
     "seidov_critical_jump",
     "spectral",
     "sound_speed_nodes",
+    "ElectronGas",
+    "electron_gas",
 ]
