@@ -36,7 +36,7 @@ CASES = {
     "electron_gas": ("mu_e = 2.0\ncoulomb_correction = true", "coulomb_correction = true",
                      {"mu_e": (2.0, 2.15)}),
 }
-AXIS = "[sweep]\ncentral_density = { min = 6e14, max = 2.5e15, count = 6 }\n"
+AXIS = "[sweep]\ncentral_density = { min = 6e14, max = 1.2e15, count = 5 }\n"  # below the maxima: no refinements
 
 
 @pytest.fixture(scope="module")

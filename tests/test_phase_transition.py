@@ -102,7 +102,7 @@ def test_core_datasets_and_rebuild_from_the_run_file(tmp_path):
     config = tmp_path / "pt.toml"
     config.write_text(f"""\
 [sweep]
-central_density = {{ min = 4e14, max = 2.5e15, count = 12 }}
+central_density = {{ min = 6e14, max = 2.5e15, count = 8 }}
 [[eos]]
 name = "hybrid"
 kind = "phase_transition"
