@@ -219,10 +219,12 @@ class ExpPolynomialPieces(EquationOfState):
         return np.where(target <= starts[0], self.lower_h[0], h).reshape(np.shape(target))
 
     def enthalpy_of_density(self, rho):
-        return self._invert(rho, 2)
+        with np.errstate(all="ignore"):  # trial steps may leave the piece; the bracket brings them back
+            return self._invert(rho, 2)
 
     def enthalpy_of_pressure(self, p):
-        return self._invert(p, 0)
+        with np.errstate(all="ignore"):
+            return self._invert(p, 0)
 
     def max_sound_speed_squared(self, h_top):
         # c_s^2 is smooth inside each piece: sample densely (16 points per piece) and at the ends
