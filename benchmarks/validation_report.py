@@ -16,7 +16,12 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "tests"))
 
-from reference_solutions import tidal_and_inertia_in_radius, tov_in_enthalpy, tov_in_radius  # noqa: E402
+from reference_solutions import (  # noqa: E402
+    hybrid_star_in_radius,
+    tidal_and_inertia_in_radius,
+    tov_in_enthalpy,
+    tov_in_radius,
+)
 
 import stellar_match as sm  # noqa: E402
 from stellar_match import units  # noqa: E402
@@ -115,6 +120,56 @@ def main() -> None:
     row("Schwarzschild radius of Sun / Earth", "common values 2.95 km / 8.87 mm", "5e-3 abs",
         f"{float(sm.exterior.schwarzschild_radius(1.0)):.4f} km / "
         f"{float(sm.exterior.schwarzschild_radius(earth)) * 1e6:.3f} mm")
+
+    kinds_of_issue_11()
+
+
+def _h(eos, rho):
+    return eos.enthalpy_of_density(units.density_to_geometric(np.atleast_1d(np.asarray(rho, dtype=float))))
+
+
+def kinds_of_issue_11() -> None:
+    """The rows of the EOS kinds added by issue 11."""
+    q = sm.quark_matter("q", 57.0)
+    worst = [0.0] * 4
+    for rho in (6e14, 2e15):
+        h = float(_h(q, rho)[0])
+        st = solve_interiors(q, np.array([h]))
+        R, M, _ = tov_in_enthalpy(q, h)
+        _, _, _, lam, inertia = tidal_and_inertia_in_radius(q, h)
+        worst = [max(w, v) for w, v in zip(worst, (rel(st.mass, M), rel(st.radius, R),
+                                                   rel(st.tidal_deformability, lam),
+                                                   rel(st.moment_of_inertia, inertia)), strict=True)]
+    row("quark stars (B = 57 MeV/fm3): M, R; Lambda, I", "solve_ivp DOP853 rtol 1e-11", "1e-6; 1e-5",
+        f"{worst[0]:.1e} (M), {worst[1]:.1e} (R); {worst[2]:.1e} (Lambda), {worst[3]:.1e} (I)")
+    q56 = sm.quark_matter("q56", 56.0)
+    rho_s = units.density_from_geometric(q56.surface_density)
+    m56 = sm.sweep_eos(q56, "central_density", rho_s * np.geomspace(1.2, 12.0, 30)).summary["max_mass"]
+    row("quark M_max, B = 56 MeV/fm3", "2.033 Msun (Witten 1984; from memory)", "0.5 %", f"{m56:.4f} Msun")
+    sly = sm.read_piecewise_polytrope("sly", *SLY)
+    pt = sm.phase_transition("pt", sly, 1.0e35, 3.0e14, 1.0)
+    worst = [0.0] * 3
+    for h in (0.25, 0.5):
+        st = solve_interiors(pt, np.array([h]))
+        R, M, Mb, _, lam, _, r_core, _ = hybrid_star_in_radius(pt, h)
+        worst = [max(w, v) for w, v in zip(worst, (max(rel(st.mass, M), rel(st.radius, R), rel(st.baryon_mass, Mb)),
+                                                   rel(st.tidal_deformability, lam), rel(st.core_radius, r_core)),
+                                           strict=True)]
+    row("hybrid stars, SLy + p_t = 1e35, jump 3e14 g/cm3, c_s^2 = 1", "solve_ivp across a smoothed jump",
+        "1e-6; 1e-5", f"{worst[0]:.1e} (M, R, M_b); {worst[1]:.1e} (Lambda); {worst[2]:.1e} (core radius)")
+    for name, eos in (("spectral [0.9865, 0.1110, -0.0301, 0.0022]",
+                       sm.spectral("s", [0.9865, 0.1110, -0.0301, 0.0022])),
+                      ("sound-speed nodes", sm.sound_speed_nodes("n", [1.5e14, 3e14, 6e14, 1.2e15, 2.4e15],
+                                                                 [0.05, 0.3, 0.6, 0.4, 0.5]))):
+        h = float(_h(eos, 1.1e15)[0])
+        st = solve_interiors(eos, np.array([h]))
+        R, M, Mb = tov_in_enthalpy(eos, h)
+        row(f"{name}, rho_c = 1.1e15: M, R, M_b", "solve_ivp DOP853 rtol 1e-11 (h-form)", "1e-6",
+            f"{max(rel(st.mass, M), rel(st.radius, R), rel(st.baryon_mass, Mb)):.1e}")
+    wd = sm.electron_gas("wd", 2.0)
+    seq = sm.sweep_eos(wd, "central_density", np.geomspace(5e9, 1e11, 9)).summary
+    row("white-dwarf GR maximum, mu_e = 2", "solve_ivp reference at the same central density", "1e-6",
+        f"{seq['max_mass']:.5f} Msun at {seq['max_mass_central_density']:.3e} g/cm3")
 
 
 if __name__ == "__main__":
