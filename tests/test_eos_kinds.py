@@ -92,3 +92,14 @@ def test_rebuilt_from_the_run_file_is_the_same_eos(every_kind, kind):
     for a, b in zip(again.state(h), built.state(h), strict=True):
         np.testing.assert_array_equal(a, b)
     assert again.kind == kind
+
+
+@pytest.mark.parametrize("name", ["example_hybrid.toml", "example_white_dwarf.toml"])
+def test_the_examples_of_the_new_kinds_build(name):
+    # runs/ shows a hybrid-star candidate with its twin branch and a white-dwarf sweep (issue 11)
+    from pathlib import Path
+
+    config = sm.load_config(Path(__file__).resolve().parents[1] / "runs" / name)
+    for spec in config.eos:
+        spec.build()
+    assert config.eos or config.ensembles
