@@ -28,7 +28,12 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path[:0] = [str(ROOT / "tests"), str(ROOT)]  # the references, and the package of this checkout
 
-from reference_solutions import tidal_and_inertia_in_radius, tov_in_enthalpy, tov_in_radius  # noqa: E402
+from reference_solutions import (  # noqa: E402
+    hybrid_star_in_radius,
+    tidal_and_inertia_in_radius,
+    tov_in_enthalpy,
+    tov_in_radius,
+)
 
 import stellar_match as sm  # noqa: E402
 from stellar_match import units  # noqa: E402
@@ -538,6 +543,88 @@ def _targets():
 
 # --- units, exterior, exports --------------------------------------------------------------
 
+def _h(eos, rho):
+    return eos.enthalpy_of_density(units.density_to_geometric(np.atleast_1d(np.asarray(rho, dtype=float))))
+
+
+@row("quark stars (B = 57 MeV/fm³, ρ_c = 6e14, 2e15): M, R; Λ, I",
+     "solve_ivp DOP853 rtol 1e-11 (h-form; r-form with the surface jump)", "1e-6; 1e-5")
+def _quark_stars():
+    q = sm.quark_matter("q", 57.0)
+    worst = [0.0] * 4
+    for rho in (6e14, 2e15):
+        h = float(_h(q, rho)[0])
+        st = solve_interiors(q, np.array([h]))
+        R, M, _ = tov_in_enthalpy(q, h)
+        _, _, _, lam, inertia = tidal_and_inertia_in_radius(q, h)
+        worst = [max(w, v) for w, v in zip(worst, (rel(st.mass, M), rel(st.radius, R),
+                                                   rel(st.tidal_deformability, lam),
+                                                   rel(st.moment_of_inertia, inertia)), strict=True)]
+    return f"{worst[0]:.1e} (M), {worst[1]:.1e} (R); {worst[2]:.1e} (Λ), {worst[3]:.1e} (I)"
+
+
+@row("quark M_max, B = 56 MeV/fm³", "2.033 Msun (Witten 1984; from memory)", "0.5 %")
+def _quark_maximum():
+    q56 = sm.quark_matter("q56", 56.0)
+    rho_s = units.density_from_geometric(q56.surface_density)
+    m56 = sm.sweep_eos(q56, "central_density", rho_s * np.geomspace(1.2, 12.0, 30)).summary["max_mass"]
+    return f"{m56:.4f} Msun ({m56 / 2.033 - 1:+.2%})"
+
+
+@row("hybrid stars, SLy + p_t = 1e35, Δε = 3e14 g/cm³, c_s² = 1: M, R, M_b; Λ; core radius",
+     "solve_ivp across a jump smoothed over 1e-8 p_t, no jump condition assumed", "1e-6; 1e-5")
+def _hybrid_stars():
+    pt = sm.phase_transition("pt", sly(), 1.0e35, 3.0e14, 1.0)
+    worst = [0.0] * 3
+    for h in (0.25, 0.5):
+        st = solve_interiors(pt, np.array([h]))
+        R, M, Mb, _, lam, _, r_core, _ = hybrid_star_in_radius(pt, h)
+        worst = [max(w, v) for w, v in zip(worst, (max(rel(st.mass, M), rel(st.radius, R), rel(st.baryon_mass, Mb)),
+                                                   rel(st.tidal_deformability, lam), rel(st.core_radius, r_core)),
+                                           strict=True)]
+    return f"{worst[0]:.1e} (M, R, M_b); {worst[1]:.1e} (Λ); {worst[2]:.1e} (core radius)"
+
+
+@row("spectral and sound-speed-node stars at ρ_c = 1.1e15 g/cm³: M, R, M_b", "solve_ivp DOP853 rtol 1e-11 (h-form)",
+     "1e-6")
+def _smooth_kinds():
+    out = []
+    for name, eos in (("spectral", sm.spectral("s", [0.9865, 0.1110, -0.0301, 0.0022])),
+                      ("nodes", sm.sound_speed_nodes("n", [1.5e14, 3e14, 6e14, 1.2e15, 2.4e15],
+                                                     [0.05, 0.3, 0.6, 0.4, 0.5]))):
+        h = float(_h(eos, 1.1e15)[0])
+        st = solve_interiors(eos, np.array([h]))
+        R, M, Mb = tov_in_enthalpy(eos, h)
+        out.append(f"{max(rel(st.mass, M), rel(st.radius, R), rel(st.baryon_mass, Mb)):.1e} ({name})")
+    return ", ".join(out)
+
+
+@row("white dwarf, μ_e = 2, ρ_c = 1 g/cm³: M, R", "Newtonian n = 3/2 Lane-Emden, ξ₁ = 3.65375, "
+     "−ξ²θ' = 2.71406 (Chandrasekhar 1939, from memory)", "1e-4")
+def _white_dwarf_lane_emden():
+    c_cgs = units.SPEED_OF_LIGHT_SI * 1e2
+    erg_per_mev = units.ELEMENTARY_CHARGE_SI * 1e13
+    hbar = units.HBAR_C_MEV_FM * 1e-13 * erg_per_mev / c_cgs  # erg s
+    m_e = units.ELECTRON_REST_ENERGY_MEV * erg_per_mev / c_cgs**2  # g
+    mu_e, rho_c = 2.0, 1.0
+    k_nr = (3 * np.pi**2) ** (2 / 3) * hbar**2 / (5 * m_e * (mu_e * units.ATOMIC_MASS_UNIT_G) ** (5 / 3))
+    a = np.sqrt(2.5 * k_nr * rho_c ** (-1 / 3) / (4 * np.pi * units.GRAVITATIONAL_CONSTANT_SI * 1e3))
+    star = sm.solve_stars(sm.electron_gas("wd", mu_e), central_density=[rho_c])
+    dm = rel(star["mass"], 4 * np.pi * a**3 * rho_c * 2.71406 / units.SOLAR_MASS_G)
+    dr = rel(star["radius"], 3.65375 * a / 1e5)
+    return f"{dm:.1e} (M), {dr:.1e} (R)"
+
+
+@row("white-dwarf GR maximum, μ_e = 2", "solve_ivp DOP853 rtol 1e-11 at the same central density", "1e-6")
+def _white_dwarf_maximum():
+    eos = sm.electron_gas("wd", 2.0)
+    summary = sm.sweep_eos(eos, "central_density", np.geomspace(5e9, 1e11, 9)).summary
+    rho = summary["max_mass_central_density"]
+    reference = units.mass_from_geometric(tov_in_enthalpy(eos, float(_h(eos, rho)[0]))[1])
+    return (f"{rel(summary['max_mass'], reference):.1e}; M_max = {summary['max_mass']:.4f} Msun "
+            f"at {rho:.3e} g/cm³")
+
+
 @row("constants, geometric factors", "astropy `codata2018`, `iau2015`", "1e-14")
 def _constants():
     try:
@@ -604,6 +691,7 @@ def main(argv: list[str] | None = None) -> None:
         with np.errstate(all="ignore"):
             measured = fn(**options.get(fn, {}))
         print(f"| {case} | {source} | {tolerance} | {measured} |", flush=True)
+
 
 
 if __name__ == "__main__":

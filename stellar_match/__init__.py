@@ -32,10 +32,15 @@ from .eos import (
     Incompressible,
     PiecewisePolytrope,
     TableColumns,
+    electron_gas,
     from_table,
     incompressible,
+    phase_transition,
     polytrope,
+    quark_matter,
     read_piecewise_polytrope,
+    sound_speed_nodes,
+    spectral,
 )
 from .errors import ConfigError, InputError, RunFileError, TableError
 from .inference import EOSLikelihood
@@ -80,6 +85,11 @@ __all__ = [
     "incompressible",
     "polytrope",
     "read_piecewise_polytrope",
+    "quark_matter",
+    "phase_transition",
+    "spectral",
+    "sound_speed_nodes",
+    "electron_gas",
     "ConfigError",
     "InputError",
     "RunFileError",

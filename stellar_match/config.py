@@ -8,7 +8,6 @@ The reference of all keys is in README.md ("Config reference").
 
 from __future__ import annotations
 
-import math
 import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -17,20 +16,16 @@ from typing import Any
 import numpy as np
 
 from . import eos as eos_module
+from .eos import registry
+from .eos.registry import check_number
 from .errors import ConfigError, InputError
 from .schema import group_name_problem
 from .structure import DEFAULT_STEPS, DEFAULT_TOLERANCE, StepControl
 
 __all__ = ["SweepAxis", "EOSSpec", "SolverOptions", "OutputOptions", "SweepConfig", "load_config", "parse_config"]
 
-EOS_KINDS = ("polytrope", "piecewise_polytrope", "table", "incompressible")
-_KIND_KEYS = {
-    "polytrope": {"K": "number", "gamma": "number"},
-    "piecewise_polytrope": {"log10_p1": "number", "gammas": "numbers3"},
-    "table": {"path": "string", "columns": "table"},
-    "incompressible": {"energy_density": "number"},
-}
-_DENSITY_KINDS = ("baryon_density", "rest_mass_density")
+#: The EOS kinds of ``[[eos]]`` blocks (their keys, builders and rebuilds: :mod:`stellar_match.eos.registry`).
+EOS_KINDS = registry.kind_names()
 
 # Size limits, checked before anything is allocated.  Each is far beyond any
 # real sweep yet keeps the memory a run needs within a few GB: a sweep's
@@ -88,16 +83,8 @@ class EOSSpec:
     def build(self) -> eos_module.EquationOfState:
         """Construct the EOS; errors name the config file and this block's keys."""
         key = f"eos[{self.index}]"
-        o = self.options
         try:
-            if self.kind == "polytrope":
-                return eos_module.polytrope(self.name, o["K"], o["gamma"])
-            if self.kind == "piecewise_polytrope":
-                return eos_module.read_piecewise_polytrope(self.name, o["log10_p1"], o["gammas"])
-            if self.kind == "incompressible":
-                return eos_module.incompressible(self.name, o["energy_density"])
-            _check_table_file(o["path"], self.source, f"{key}.path")
-            return eos_module.from_table(self.name, o["path"], o["columns"])
+            return registry.build_eos(self.kind, self.name, self.options)
         except ConfigError:
             raise
         except InputError as exc:
@@ -113,39 +100,6 @@ class EOSSpec:
             sub = f"{key}.{exc.key}" if exc.key else key
             message = f"{exc.message} (table {exc.source})" if exc.source else exc.message
             raise ConfigError(message, source=self.source, key=sub) from None
-
-
-def _check_table_file(path: Path, source: str, key: str) -> None:
-    """Refuse a table path that is no readable CSV file, naming the config key.
-
-    Checked before the table is read: a FIFO or device would block or read
-    forever, and a folder, an empty file or a binary file would otherwise
-    surface as a puzzling parse error.
-    """
-    import stat
-
-    def fail(message: str) -> ConfigError:
-        return ConfigError(f"table file {path} {message}", source=source, key=key)
-
-    try:
-        mode = path.stat().st_mode
-    except FileNotFoundError:
-        raise fail("not found") from None
-    except OSError as exc:
-        raise fail(f"cannot be read ({exc.strerror})") from None
-    if stat.S_ISDIR(mode):
-        raise fail("is a folder, not a CSV table")
-    if not stat.S_ISREG(mode):
-        raise fail("is not a regular file (a device, pipe or socket)")
-    try:
-        with path.open("rb") as f:
-            head = f.read(8192)
-    except OSError as exc:
-        raise fail(f"cannot be read ({exc.strerror or exc})") from None
-    if not head:
-        raise fail("is empty")
-    if b"\0" in head:  # text never holds NUL bytes; binaries nearly always do
-        raise fail("is a binary file, not a CSV table")
 
 
 @dataclass(frozen=True)
@@ -270,17 +224,7 @@ def _fail(source: str, key: str, message: str) -> ConfigError:
 
 
 def _number(value: Any, source: str, key: str, *, positive: bool = False) -> float:
-    if isinstance(value, bool) or not isinstance(value, int | float):
-        raise _fail(source, key, f"needs a number, got {type(value).__name__} {value!r}")
-    try:
-        value = float(value)
-    except OverflowError:  # a TOML integer with hundreds of digits
-        value = math.inf
-    if not math.isfinite(value):
-        raise _fail(source, key, "needs a finite number")
-    if positive and value <= 0:
-        raise _fail(source, key, f"needs a positive number, got {value:g}")
-    return value
+    return check_number(value, source, key, positive=positive)
 
 
 def _table(value: Any, source: str, key: str) -> dict:
@@ -331,28 +275,6 @@ def _axis(sweep: dict, source: str) -> SweepAxis:
     return SweepAxis(q, values)
 
 
-def _columns(value: Any, source: str, key: str) -> eos_module.TableColumns:
-    cols = _table(value, source, key)
-    _no_unknown(cols, {"pressure", "energy_density", *_DENSITY_KINDS}, source, key)
-    parts = {}
-    for q in ("pressure", "energy_density", *_DENSITY_KINDS):
-        if q not in cols:
-            continue
-        spec = _table(cols[q], source, f"{key}.{q}")
-        _no_unknown(spec, {"column", "unit"}, source, f"{key}.{q}")
-        for k in ("column", "unit"):
-            if not isinstance(spec.get(k), str):
-                raise _fail(source, f"{key}.{q}.{k}", "missing or not a string")
-        parts[q] = (spec["column"], spec["unit"])
-    for q in ("pressure", "energy_density"):
-        if q not in parts:
-            raise _fail(source, f"{key}.{q}", "missing")
-    dens = [q for q in _DENSITY_KINDS if q in parts]
-    if len(dens) != 1:
-        raise _fail(source, key, "needs exactly one of baryon_density or rest_mass_density")
-    return eos_module.TableColumns(parts["pressure"], parts["energy_density"], parts[dens[0]], dens[0])
-
-
 def _eos_spec(index: int, block: Any, source: str, base_dir: Path | None) -> EOSSpec:
     key = f"eos[{index}]"
     block = _table(block, source, key)
@@ -363,30 +285,7 @@ def _eos_spec(index: int, block: Any, source: str, base_dir: Path | None) -> EOS
     problem = group_name_problem(name)  # the name becomes the run file's /eos/<name> group
     if problem:
         raise _fail(source, f"{key}.name", problem)
-    if kind not in EOS_KINDS:
-        raise _fail(source, f"{key}.kind", f"unknown kind {kind!r} (use one of: {', '.join(EOS_KINDS)})")
-    wanted = _KIND_KEYS[kind]
-    _no_unknown(block, {"name", "kind", *wanted}, source, key)
-    options: dict[str, Any] = {}
-    for k, what in wanted.items():
-        if k not in block:
-            raise _fail(source, f"{key}.{k}", f"missing (kind {kind!r} needs {', '.join(wanted)})")
-        v = block[k]
-        if what == "number":
-            options[k] = _number(v, source, f"{key}.{k}")
-        elif what == "numbers3":
-            if not isinstance(v, list) or len(v) != 3:
-                raise _fail(source, f"{key}.{k}", f"needs 3 numbers [G1, G2, G3], got {v!r}")
-            options[k] = [_number(x, source, f"{key}.{k}") for x in v]
-        elif what == "string":
-            if not isinstance(v, str) or not v:
-                raise _fail(source, f"{key}.{k}", "needs a file path string")
-            p = Path(v)
-            if not p.is_absolute() and base_dir is not None:
-                p = base_dir / p
-            options[k] = p
-        elif what == "table":
-            options[k] = _columns(v, source, f"{key}.{k}")
+    kind, options = registry.parse_options(block, source, key, base_dir, extra={"name"})
     return EOSSpec(index=index, name=name, kind=kind, options=options, source=source)
 
 
@@ -492,9 +391,9 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
         if s.name in seen:
             raise _fail(source, f"eos[{s.index}].name", f"duplicate name {s.name!r} (also eos[{seen[s.name]}])")
         seen[s.name] = s.index
-        if s.kind == "incompressible" and axis.quantity != "central_pressure":
+        if axis.quantity != "central_pressure" and not registry.get_kind(s.kind).density_axis(s.options):
             raise _fail(source, "sweep.central_density",
-                        f"eos[{s.index}] is incompressible: sweep central_pressure instead")
+                        f"eos[{s.index}] ({s.kind}) has no rest-mass density axis: sweep central_pressure instead")
     return SweepConfig(
         path=Path(source) if source != "<config>" else None,
         text=text,

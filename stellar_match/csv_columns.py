@@ -17,7 +17,7 @@ import numpy as np
 
 from .errors import ConfigError
 
-__all__ = ["read_columns"]
+__all__ = ["read_columns", "read_header"]
 
 
 def read_columns(path: Path, columns: list[str], *, optional: tuple[str, ...] = (), what: str, item: str,
@@ -51,9 +51,7 @@ def read_columns(path: Path, columns: list[str], *, optional: tuple[str, ...] = 
         raise fail("is a folder, not a CSV file") from None
     except OSError:
         raise fail("not found or unreadable") from None
-    text = raw.decode("utf-8-sig", errors="replace")
-    lines = [(i, ln.strip()) for i, ln in enumerate(io.StringIO(text), start=1)
-             if ln.strip() and not ln.strip().startswith("#")]
+    lines = _content_lines(raw)
     if not lines:
         raise fail("empty: no header row")
     header = [h.strip() for h in lines[0][1].split(",")]
@@ -75,3 +73,23 @@ def read_columns(path: Path, columns: list[str], *, optional: tuple[str, ...] = 
             raise fail(f"a {item} is not finite", number)
         rows.append(row)
     return np.array(rows).reshape(len(rows), len(idx)), hashlib.sha256(raw).hexdigest(), present
+
+
+def _content_lines(raw: bytes) -> list[tuple[int, str]]:
+    """(line number, stripped text) of the lines that are neither blank nor ``#`` comments."""
+    text = raw.decode("utf-8-sig", errors="replace")
+    return [(i, ln.strip()) for i, ln in enumerate(io.StringIO(text), start=1)
+            if ln.strip() and not ln.strip().startswith("#")]
+
+
+def read_header(path: Path) -> list[str]:
+    """The column names of a CSV file's header row; empty if the file cannot be read.
+
+    For choosing which columns to ask :func:`read_columns` for; that call
+    then says what is wrong with an unreadable file.
+    """
+    try:
+        lines = _content_lines(Path(path).read_bytes())
+    except OSError:
+        return []
+    return [h.strip() for h in lines[0][1].split(",")] if lines else []

@@ -17,7 +17,8 @@ from pathlib import Path
 import numpy as np
 
 from . import units
-from .eos import EquationOfState, central_enthalpy, polytrope, read_piecewise_polytrope
+from .csv_columns import read_header
+from .eos import EquationOfState, central_enthalpy, registry
 from .errors import ConfigError, InputError
 from .exterior import star_columns
 from .schema import MEMBER_STATUS, MEMBER_SUMMARIES, NOT_SOLVED, STAR_DATASETS, group_name_problem
@@ -26,11 +27,11 @@ from .structure import StepControl, solve_interiors
 
 __all__ = ["EnsembleSpec", "ENSEMBLE_KINDS", "MEMBER_STATUS", "MEMBER_SUMMARIES", "solve_members"]
 
-#: Parameters of each ensemble kind, in the order of the member table.
-ENSEMBLE_KINDS: dict[str, tuple[str, ...]] = {
-    "piecewise_polytrope": ("log10_p1", "gamma1", "gamma2", "gamma3"),
-    "polytrope": ("K", "gamma"),
-}
+#: The EOS kinds an ensemble can have (those whose keys map to member columns), from the one
+#: registry of kinds (:mod:`stellar_match.eos.registry`).
+ENSEMBLE_KINDS: dict[str, registry.EOSKind] = {k: v for k, v in registry.KINDS.items() if v.columns is not None}
+
+
 @dataclass(frozen=True)
 class EnsembleSpec:
     """One validated ``[[ensemble]]`` block.
@@ -42,9 +43,15 @@ class EnsembleSpec:
     name, kind : str
         Label and EOS kind (a key of :data:`ENSEMBLE_KINDS`).
     parameters : ndarray, shape (members, n_parameters)
-        Member parameters, columns in ``ENSEMBLE_KINDS[kind]`` order.
+        Member parameters, one column per entry of ``columns``.
     origin : dict
-        How the members were given (file and its sha256, or sampler ranges and seed).
+        How the members were given (file and its sha256, or sampler ranges and
+        seed) and the block's ``fixed`` keys, as written in the config.
+    columns : tuple of str
+        The member columns (:func:`stellar_match.eos.registry.member_columns`);
+        default: the kind's required columns given ``fixed``.
+    fixed : dict
+        The kind's keys given once in the block, for every member (parsed).
     prior_weight : ndarray, shape (members,), or None
         Prior weight of each member, from a ``weight`` column of the members
         CSV (None: every member weighs the same, as for sampled members).
@@ -55,6 +62,8 @@ class EnsembleSpec:
     kind: str
     parameters: np.ndarray = field(repr=False)
     origin: dict
+    columns: tuple[str, ...] = ()
+    fixed: dict = field(default_factory=dict, repr=False)
     prior_weight: np.ndarray | None = field(default=None, repr=False)
 
     def __repr__(self) -> str:
@@ -63,21 +72,30 @@ class EnsembleSpec:
             f"sampled, seed {o['seed']}" if "seed" in o else "members given")
         return f"EnsembleSpec({self.name!r}, kind={self.kind!r}, {self.size} members, {where})"
 
+    def __post_init__(self) -> None:
+        if not self.columns:  # built in code without columns: the kind's required ones, nothing fixed
+            object.__setattr__(self, "columns", registry.member_columns(self.kind, self.fixed, set()))
+
     @property
     def size(self) -> int:
         return int(self.parameters.shape[0])
 
     @property
     def parameter_names(self) -> tuple[str, ...]:
-        return ENSEMBLE_KINDS[self.kind]
+        return self.columns
+
+    @property
+    def extra_datasets(self) -> tuple[str, ...]:
+        """Per-star datasets of ``schema.OPTIONAL_STAR_DATASETS`` its kind writes (e.g. core_radius)."""
+        return ENSEMBLE_KINDS[self.kind].extra_datasets
+
+    def member_options(self, i: int) -> dict:
+        """The options of member ``i``, as an ``[[eos]]`` block of the kind would give them."""
+        return registry.member_options(self.kind, self.fixed, self.columns, self.parameters[i])
 
     def member_eos(self, i: int) -> EquationOfState:
         """Build member ``i`` (raises InputError for invalid parameters)."""
-        row = self.parameters[i]
-        name = f"{self.name}[{i}]"
-        if self.kind == "piecewise_polytrope":
-            return read_piecewise_polytrope(name, row[0], [row[1], row[2], row[3]])
-        return polytrope(name, row[0], row[1])
+        return registry.build_eos(self.kind, f"{self.name}[{i}]", self.member_options(i))
 
 
 def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) -> EnsembleSpec:
@@ -89,19 +107,30 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
 
     if not isinstance(block, dict):
         raise fail("", "needs a table")
-    allowed = {"name", "kind", "members", "sample"}
+    own = {"name", "kind", "members", "sample"}
+    kind = block.get("kind")
+    kind_keys = ENSEMBLE_KINDS[kind].keys if isinstance(kind, str) and kind in ENSEMBLE_KINDS else ()
+    allowed = own | set(kind_keys)
     for k in block:
         if k not in allowed:
             raise fail(k, f"unknown key (expected one of: {', '.join(sorted(allowed))})")
-    name, kind = block.get("name"), block.get("kind")
+    name = block.get("name")
     problem = group_name_problem(name)  # the name becomes the run file's /ensemble/<name> group
     if problem:
         raise fail("name", problem)
     if kind not in ENSEMBLE_KINDS:
         raise fail("kind", f"unknown ensemble kind {kind!r} (use one of: {', '.join(ENSEMBLE_KINDS)})")
-    names = ENSEMBLE_KINDS[kind]
+    # keys given once in the block hold for every member; the others are member columns
+    column_keys = frozenset(c.key for c in ENSEMBLE_KINDS[kind].columns)
+    _, fixed = registry.parse_options({k: v for k, v in block.items() if k not in own - {"kind"}}, source, key,
+                                      base_dir, open_keys=column_keys)
+    fixed_raw = {k: block[k] for k in kind_keys if k in block}
     if ("members" in block) == ("sample" in block):
         raise fail("", "needs exactly one of members (a CSV file) or [ensemble.sample]")
+
+    def nothing_varies() -> ConfigError:
+        return fail("", f"every key of kind {kind!r} is given in the block or left at its default: nothing "
+                    f"varies between members")
     if "members" in block:
         path = block["members"]
         if not isinstance(path, str) or not path:
@@ -109,12 +138,18 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         p = Path(path)
         if not p.is_absolute() and base_dir is not None:
             p = base_dir / p
+        names = registry.member_columns(kind, fixed, set(read_header(p)) - {WEIGHT_COLUMN})
+        if not names:
+            raise nothing_varies()
         params, sha, prior_weight = _read_members(p, names, source, f"{key}.members")
         origin = {"members": str(p), "members_sha256": sha}
     else:
         spec = block["sample"]
         if not isinstance(spec, dict):
             raise fail("sample", "needs a table with count, seed and a [low, high] range per parameter")
+        names = registry.member_columns(kind, fixed, set(spec) - {"count", "seed"})
+        if not names:
+            raise nothing_varies()
         for k in spec:
             if k not in {"count", "seed", *names}:
                 raise fail(f"sample.{k}", f"unknown key (expected count, seed, {', '.join(names)})")
@@ -139,8 +174,10 @@ def parse_ensemble(index: int, block: dict, source: str, base_dir: Path | None) 
         prior_weight = None
         origin = {"sampler": "uniform", "generator": "numpy PCG64", "seed": seed,
                   "ranges": {n: list(r) for n, r in zip(names, ranges, strict=True)}}
-    return EnsembleSpec(index=index, name=name, kind=kind, parameters=params, origin=origin,
-                        prior_weight=prior_weight)
+    if fixed_raw:
+        origin["fixed"] = fixed_raw
+    return EnsembleSpec(index=index, name=name, kind=kind, parameters=params.reshape(len(params), len(names)),
+                        origin=origin, columns=names, fixed=fixed, prior_weight=prior_weight)
 
 
 def _floats(values: list) -> list[float]:
@@ -209,7 +246,8 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
 
     values = np.asarray(values, dtype=float)
     n, n_stars = stop - start, values.size
-    out: dict[str, np.ndarray] = {k: np.full((n, n_stars), np.nan) for k in STAR_DATASETS if k != "stable"}
+    star_names = [k for k in STAR_DATASETS if k != "stable"] + list(ENSEMBLE_KINDS[spec.kind].extra_datasets)
+    out: dict[str, np.ndarray] = {k: np.full((n, n_stars), np.nan) for k in star_names}
     out["stable"] = np.zeros((n, n_stars), dtype=bool)
     out["star_status"] = np.full((n, n_stars), NOT_SOLVED, dtype=np.int8)
     for k in MEMBER_SUMMARIES:

@@ -411,6 +411,7 @@ def _assemble(parts: list[dict[str, np.ndarray]], meta: dict) -> ExportTable:
 def _ensemble_parts(ensembles, members: slice | None, budget: int) -> list[dict[str, np.ndarray]]:
     """Row blocks (member-major, star fastest) of the selected members of each ensemble."""
     from .ensemble import ENSEMBLE_KINDS
+    from .eos import registry
 
     members = members or slice(None)
     sizes = []
@@ -433,8 +434,8 @@ def _ensemble_parts(ensembles, members: slice | None, budget: int) -> list[dict[
         part = {"eos": np.full((stop - start) * m, label, dtype=object),
                 "member": np.repeat(np.arange(start, stop), m)}
         params = run.ensembles[name].members
-        kind_order = ENSEMBLE_KINDS.get(run.ensembles[name].kind, ())
-        for k in sorted(params, key=lambda k: (kind_order.index(k) if k in kind_order else len(kind_order), k)):
+        kind = run.ensembles[name].kind
+        for k in sorted(params, key=lambda k: (registry.column_rank(kind, k) if kind in ENSEMBLE_KINDS else (0, 0), k)):
             part[k] = np.repeat(np.asarray(params[k], dtype=float)[start:stop], m)
         parts.append(part | _star_columns({k: np.asarray(v).reshape(-1) for k, v in block.items()}))
     return parts

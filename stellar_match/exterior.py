@@ -169,8 +169,9 @@ def match_surface(mass_km, radius_km, central_enthalpy) -> SurfaceMatch:
 def star_columns(interiors) -> dict[str, np.ndarray]:
     """Match solved interiors (``structure.StarInteriors``) and give the run-file columns.
 
-    Returns the per-star datasets of ``runfile.STAR_DATASETS`` (all but
-    ``stable``) in their physical units: Msun, km, g/cm^3, dyn/cm^2, cm/s^2, g cm^2.
+    Returns the per-star datasets of ``schema.STAR_DATASETS`` (all but
+    ``stable``) in their physical units: Msun, km, g/cm^3, dyn/cm^2, cm/s^2, g cm^2;
+    with ``schema.OPTIONAL_STAR_DATASETS`` too when the interiors carry a core.
     """
     match = match_surface(interiors.mass, interiors.radius, interiors.central_enthalpy)
     nan = np.full(np.shape(interiors.mass), np.nan)
@@ -194,7 +195,15 @@ def star_columns(interiors) -> dict[str, np.ndarray]:
         "binding_energy": units.mass_from_geometric(interiors.baryon_mass - interiors.mass),
         "error_estimate": np.asarray(interiors.error_estimate, dtype=float),
         "star_status": np.asarray(interiors.status, dtype=np.int8),
-    }
+    } | _core_columns(interiors)
+
+
+def _core_columns(interiors) -> dict[str, np.ndarray]:
+    """``core_radius`` (km) and ``core_mass`` (Msun) of stars of an EOS with a phase transition, else nothing."""
+    if getattr(interiors, "core_radius", None) is None:
+        return {}
+    return {"core_radius": np.asarray(interiors.core_radius, dtype=float),
+            "core_mass": units.mass_from_geometric(np.asarray(interiors.core_mass, dtype=float))}
 
 
 # --- radiation radius, redshift velocity and the inverse mapping ------------------

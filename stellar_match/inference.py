@@ -44,6 +44,28 @@ SAMPLER_STEP_SCALE = 2.0
 SAMPLER_TOLERANCE = 5e-4
 
 
+def _parameters_of(kind: str, fixed: dict | None, names) -> tuple[dict, tuple[str, ...]]:
+    """(parsed fixed keys, parameter names) of a sampler over ``kind``, as an ensemble block gives them."""
+    from .eos import registry
+
+    if not isinstance(fixed, dict | None):
+        raise InputError(f"needs a dict of the kind's keys, got {type(fixed).__name__}", key="fixed")
+    raw = dict(fixed or {})
+    if "kind" in raw:
+        raise InputError("holds the kind's keys, not the kind itself", key="fixed.kind")
+    column_keys = frozenset(c.key for c in ENSEMBLE_KINDS[kind].columns)
+    _, parsed = registry.parse_options({"kind": kind, **raw}, "EOSLikelihood", "fixed", None,
+                                       open_keys=column_keys)  # a ConfigError (an InputError) names the key
+    offered = set() if names is None else {str(n) for n in names}
+    columns = registry.member_columns(kind, parsed, offered)
+    if names is not None and tuple(str(n) for n in names) != columns:
+        raise InputError(f"kind {kind!r} with these fixed keys takes parameters ({', '.join(columns)}) in that "
+                         f"order, got ({', '.join(map(str, names))})", key="parameter_names")
+    if not columns:
+        raise InputError(f"every key of kind {kind!r} is fixed: nothing to sample", key="fixed")
+    return parsed, columns
+
+
 class EOSLikelihood:
     """ln L(parameters) of an EOS kind given a constraints object.
 
@@ -51,7 +73,8 @@ class EOSLikelihood:
     ----------
     kind : str
         An ensemble kind (``"piecewise_polytrope"``: log10_p1, gamma1,
-        gamma2, gamma3; ``"polytrope"``: K, gamma).
+        gamma2, gamma3; ``"polytrope"``: K, gamma; every kind of README's
+        member-column table).
     constraints : Constraints
         Measurements, at least one with a likelihood.
     central_densities : array_like, optional
@@ -63,6 +86,15 @@ class EOSLikelihood:
         ``SolverOptions().control()`` gives a sweep's defaults).
     member_chunk : int
         Members solved as one batch by :meth:`members`.
+    fixed : dict, optional
+        Keys of the kind held for every parameter vector, written as in an
+        ``[[ensemble]]`` block, e.g. ``{"base": {"kind": "polytrope", "K": 1e5,
+        "gamma": 2.5}}`` for ``phase_transition`` or ``{"densities": [...]}``
+        for ``sound_speed_nodes``.  Every other key is a parameter.
+    parameter_names : sequence of str, optional
+        The parameters, in the order of the vector, when the kind has optional
+        ones (e.g. ``["gamma0", "gamma1", "gamma2"]`` for ``spectral``); checked
+        against the kind.  Default: its required columns given ``fixed``.
     refine_maximum : bool
         Refine each maximum mass by fresh solves, or (default) take it from
         the parabola through the three samples around it: the refinement
@@ -78,7 +110,8 @@ class EOSLikelihood:
 
     def __init__(self, kind: str, constraints: Constraints, *, central_densities=None,
                  quantity: str = "central_density", control: StepControl | None = None,
-                 member_chunk: int = 64, refine_maximum: bool = False) -> None:
+                 member_chunk: int = 64, refine_maximum: bool = False, fixed: dict | None = None,
+                 parameter_names=None) -> None:
         if kind not in ENSEMBLE_KINDS:
             raise InputError(f"unknown kind {kind!r} (use one of: {', '.join(ENSEMBLE_KINDS)})", key="kind")
         if not constraints.scored():
@@ -97,7 +130,7 @@ class EOSLikelihood:
         self.control = control
         self.member_chunk = int(member_chunk)
         self.refine_maximum = bool(refine_maximum)
-        self.parameter_names = ENSEMBLE_KINDS[kind]
+        self.fixed, self.parameter_names = _parameters_of(kind, fixed, parameter_names)
         self.labels = constraints.labels
         # Lambda only when a measurement needs it: the structure-only solve is about twice as fast
         self.response = any(isinstance(m, BinaryMeasurement) for m in constraints.scored())
@@ -175,7 +208,8 @@ class EOSLikelihood:
         for name in MEMBER_SUMMARIES:
             if name != "status":
                 result[name] = np.full(n, np.nan)
-        spec = EnsembleSpec(index=0, name="parameters", kind=self.kind, parameters=params, origin={})
+        spec = EnsembleSpec(index=0, name="parameters", kind=self.kind, parameters=params, origin={},
+                            columns=self.parameter_names, fixed=self.fixed)
         for a in range(0, n, self.member_chunk):
             b = min(n, a + self.member_chunk)
             with np.errstate(all="ignore"):

@@ -226,7 +226,8 @@ def stable_branches(central_pressure, mass, radius, stable, *, tidal_deformabili
     ----------
     central_pressure, mass, radius : array_like, shape (n, m) or (m,)
         Per-star values (any order along a row); central pressure orders the
-        stars (dyn/cm^2), mass in Msun, radius in km.  Stars with a NaN take no part.
+        stars (dyn/cm^2), mass in Msun, radius in km.  Stars with a NaN take no part,
+        nor repeats of a central pressure (sweeps through the gap of a density jump).
     stable : array_like of bool, shape (n, m) or (m,)
         Turning-point stability of each star.
     tidal_deformability : array_like, optional
@@ -253,8 +254,15 @@ def stable_branches(central_pressure, mass, radius, stable, *, tidal_deformabili
 
     with np.errstate(invalid="ignore", divide="ignore"):
         good = use[:, None] & np.isfinite(p) & np.isfinite(m) & np.isfinite(r) & (p > 0) & (m > 0) & (r > 0)
-        order = np.argsort(np.where(good, p, np.inf), axis=1, kind="stable")
         take = np.take_along_axis
+        # central densities inside the gap of a density jump all give the star at p_t: keep one of them
+        order = np.argsort(np.where(good, p, np.inf), axis=1, kind="stable")
+        p_sorted = take(np.where(good, p, np.inf), order, 1)
+        repeat = np.zeros_like(good)
+        repeat[:, 1:] = np.isfinite(p_sorted[:, 1:]) & (p_sorted[:, 1:] == p_sorted[:, :-1])
+        np.put_along_axis(repeat, order, repeat.copy(), axis=1)
+        good &= ~repeat
+        order = np.argsort(np.where(good, p, np.inf), axis=1, kind="stable")
         x = np.where(take(good, order, 1), np.log(take(np.where(good, p, 1.0), order, 1)), np.nan)
         m, r, lam, st = (take(v, order, 1) for v in (m, r, lam, st))
         good = take(good, order, 1)

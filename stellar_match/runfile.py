@@ -58,6 +58,7 @@ from .schema import (
     MEMBER_PARAMETER_UNITS,
     MEMBER_STATUS,
     MEMBER_SUMMARIES,
+    OPTIONAL_STAR_DATASETS,
     PRIOR_WEIGHT,
     STAR_DATASETS,
     STAR_STATUS,
@@ -275,7 +276,8 @@ class RunFileWriter:
         n, m = spec.size, axis.values.size
         chunk_rows = max(1, min(n, 2**16 // max(m, 1)))
         g.attrs["star_status_meaning"] = json.dumps({str(k): v for k, v in STAR_STATUS.items()})
-        for col, (unit, meaning) in STAR_DATASETS.items():
+        star_datasets = STAR_DATASETS | {k: OPTIONAL_STAR_DATASETS[k] for k in getattr(spec, "extra_datasets", ())}
+        for col, (unit, meaning) in star_datasets.items():
             d = g.create_dataset(col, shape=(n, m), dtype=dataset_dtype(col), chunks=(chunk_rows, m),
                                  **self._filters)
             d.attrs["unit"] = unit
@@ -287,7 +289,7 @@ class RunFileWriter:
         for d in members.values():
             d.dims[0].attach_scale(g["member"])
         for task, arrays in parts:
-            for col in (*STAR_DATASETS, *MEMBER_SUMMARIES):
+            for col in (*star_datasets, *MEMBER_SUMMARIES):
                 g[col][task.start : task.stop] = arrays[col]
             self._flush()
 

@@ -32,6 +32,7 @@ from .schema import (
     FORMAT,
     FORMAT_VERSION,
     MEMBER_SUMMARIES,
+    OPTIONAL_STAR_DATASETS,
     READABLE_VERSIONS,
     STAR_DATASETS,
     SUMMARY_ATTRIBUTES,
@@ -280,6 +281,9 @@ def _check_eos_group(g, where: str, version: int) -> None:
             if name in DIMENSIONS:
                 if name != "star":
                     raise _Problem(sub, f"a {name!r} dimension scale belongs to a subgroup")
+            elif name in OPTIONAL_STAR_DATASETS:
+                _dataset(g, name, sub, kind="f", ndim=1, unit=OPTIONAL_STAR_DATASETS[name][0], shape=shape,
+                         version=version)
             elif name not in STAR_DATASETS:  # read as a column too: it must line up with the stars
                 _dataset(g, name, sub, kind="fiub", ndim=1, unit=None, shape=shape)
         elif name == "targets":
@@ -345,6 +349,10 @@ def _check_ensemble_group(g, where: str, version: int) -> None:
     for name, obj in g.items():
         if (name == "members" or name in STAR_DATASETS or name in MEMBER_SUMMARIES or name == "sweep_values"
                 or name in ("member", "star")):
+            continue
+        if name in OPTIONAL_STAR_DATASETS:
+            _dataset(g, name, f"{where}/{name}", kind="f", ndim=2, unit=OPTIONAL_STAR_DATASETS[name][0], shape=grid,
+                     version=version)
             continue
         if not isinstance(obj, h5py.Dataset):
             raise _Problem(f"{where}/{name}", "unknown group (an ensemble holds only members)")

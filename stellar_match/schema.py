@@ -35,6 +35,7 @@ __all__ = [
     "BINARY_DATASETS", "SUMMARY_ATTRIBUTES", "NOT_SOLVED", "MEMBER_SUMMARIES", "MEMBER_STATUS", "dataset_dtype",
     "DATASET_SINCE_VERSION", "MAX_NAME_LENGTH", "group_name_problem", "DIMENSIONS", "LEGACY_UNITS",
     "SWEEP_UNITS", "accepted_units", "DIMENSIONS_SINCE_VERSION", "MEMBER_PARAMETER_UNITS", "PRIOR_WEIGHT",
+    "OPTIONAL_STAR_DATASETS",
 ]
 
 FORMAT = "stellar_match.run"
@@ -60,6 +61,13 @@ STAR_DATASETS: dict[str, tuple[str, str]] = {
     "error_estimate": ("", "estimated relative integration error of M and R (embedded Dormand-Prince)"),
     "star_status": ("", "per-star quality code, 0 = within tolerance (meanings: attribute star_status_meaning)"),
     "stable": ("", "turning-point stability (dM/d rho_c > 0, up to the first maximum)"),
+}
+#: Per-star datasets present only in groups whose EOS has a first-order phase transition (kind
+#: ``phase_transition``), in every format version: name -> (unit, meaning).  NaN for stars without a core.
+#: Readers that do not know them still accept the files (an extra 1-D column of the stars' length).
+OPTIONAL_STAR_DATASETS: dict[str, tuple[str, str]] = {
+    "core_radius": ("km", "areal radius of the core of the high-density phase (NaN: no core)"),
+    "core_mass": ("solMass", "gravitational mass m(r) inside the core of the high-density phase (NaN: no core)"),
 }
 #: Per-star status codes (dataset ``star_status``); every non-zero code comes with NaN physics columns.
 STAR_STATUS: dict[int, str] = {
@@ -136,8 +144,16 @@ DATASET_SINCE_VERSION: dict[str, int] = {"error_estimate": 2, "star_status": 2}
 #: Units of the member parameters of ensembles (``/ensemble/<name>/members/<parameter>``),
 #: where they have one: log10_p1 is the log10 of a pressure in dyn/cm^2; the
 #: polytropic K (cgs) has a unit that depends on each member's gamma, and the
-#: gammas are dimensionless.  Not stored in the file (the datasets predate it).
-MEMBER_PARAMETER_UNITS: dict[str, str] = {"log10_p1": "dex(dyn / cm2)"}
+#: gammas, sound speeds and mu_e are dimensionless.  Not stored in the file
+#: (the datasets predate it).
+MEMBER_PARAMETER_UNITS: dict[str, str] = {
+    "log10_p1": "dex(dyn / cm2)",
+    "energy_density": "g / cm3",
+    "bag_constant": "MeV / fm3",
+    "reference_pressure": "dyn / cm2",
+    "transition_pressure": "dyn / cm2",
+    "energy_density_jump": "g / cm3",
+}
 
 #: Units of an ensemble's ``sweep_values`` by sweep quantity.
 SWEEP_UNITS: dict[str, str] = {"central_density": "g / cm3", "central_pressure": "dyn / cm2"}

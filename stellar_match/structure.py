@@ -209,6 +209,11 @@ LOW_COMPACTNESS = 0.006
 REDO_ENVELOPE_FRACTION = 1e-10
 #: ... and with every step length scaled by this (they are few; their envelopes are long).
 REDO_STEP_SCALE = 0.7
+#: Steps off an interior density jump: each at most JUMP_GROWTH times the distance from the
+#: centre (scaled like the start-up), out to JUMP_REACH times the jump's distance (see _integrate).
+JUMP_GROWTH = 0.08
+#: A core of the high-density phase with h_c - h_t below this fraction of h_c is left to the central series.
+JUMP_NEGLIGIBLE = 1e-12
 #: EOS values at a step edge h = 0 are taken at SURFACE_GUARD * h_c instead:
 #: d eps/dh diverges at p = 0 when the outermost piece has Gamma > 2.
 SURFACE_GUARD = 1e-12
@@ -242,6 +247,11 @@ class StarInteriors:
         of a star with a non-zero code are NaN.
     steps : ndarray of int or None
         Steps each star took, over all its grids (the cost of its refinements).
+    core_radius, core_mass : ndarray or None
+        Areal radius (km) and gravitational mass m(r) (km) inside the first
+        interior density jump of the EOS (``eos.interior_jumps``): the core
+        of the high-density phase.  NaN for stars without such a core; None
+        when the EOS has no interior jump.
     """
 
     central_enthalpy: np.ndarray
@@ -257,6 +267,8 @@ class StarInteriors:
     error_estimate: np.ndarray | None = None
     status: np.ndarray | None = None
     steps: np.ndarray | None = None
+    core_radius: np.ndarray | None = None
+    core_mass: np.ndarray | None = None
 
     def __repr__(self) -> str:
         n = int(np.size(self.mass))
@@ -515,6 +527,7 @@ def step_grid(
     envelope_enthalpy: np.ndarray,
     growth: float,
     max_step: float = np.inf,
+    extra: np.ndarray | None = None,
 ) -> np.ndarray:
     """Per-star step edges: a geometric start-up, then the EOS nodes.
 
@@ -530,6 +543,9 @@ def step_grid(
         Ratio of each start-up step to its distance from the centre.
     max_step : float
         The largest enthalpy step of the other edges (``enthalpy_step``).
+    extra : ndarray, shape (K, n), optional
+        More edges per star (those off interior density jumps); entries
+        outside (0, h_c - x_0) must be 0.
 
     Returns
     -------
@@ -569,6 +585,7 @@ def step_grid(
         np.where(use_breaks, breakpoints, 0.0),
         env,
         np.zeros((1, h_c.size)),
+        *(() if extra is None else (extra,)),
     ])
     return -np.sort(-h, axis=0)
 
@@ -629,14 +646,14 @@ def solve_interiors(
     fraction = np.full(n, ENVELOPE_FRACTION)
     scale = np.ones(n)
     with np.errstate(all="ignore"):  # stars that break down are redone or flagged below
-        y, err, steps = _integrate(eos, h_c, control, response, fraction)
+        y, err, steps, core = _integrate(eos, h_c, control, response, fraction)
 
         def redo(stars):
             for factor in np.unique(scale[stars]):
                 sel = stars[scale[stars] == factor]
                 sub = eos.select(sel) if hasattr(eos, "select") else eos
-                y[:, sel], err[:, sel], steps_sel = _integrate(sub, h_c[sel], control.scaled(factor), response,
-                                                               fraction[sel])
+                y[:, sel], err[:, sel], steps_sel, core[:, sel] = _integrate(sub, h_c[sel], control.scaled(factor),
+                                                                             response, fraction[sel])
                 steps[sel] += steps_sel
 
         puffed = np.flatnonzero(~(y[1] * y[0] >= LOW_COMPACTNESS))  # m/r = v u; also NaN
@@ -686,6 +703,10 @@ def solve_interiors(
             status=status,
             steps=steps,
         )
+        if getattr(eos, "interior_jumps", None) is not None:
+            core_r = np.sqrt(core[0])
+            out.core_radius = np.where(bad, np.nan, core_r)
+            out.core_mass = np.where(bad, np.nan, core[1] * core[0] * core_r)
         if response:
             compactness = mass / radius
             # energy-density jump at the surface: y drops by 4 pi R^3 eps(R-) / M
@@ -702,6 +723,22 @@ def solve_interiors(
     return out
 
 
+def _jump_ratios(scale: float) -> np.ndarray:
+    """x / x_t of the step edges after an interior jump (x: distance from the centre in h).
+
+    Outside a core the excess mass of the core makes v relax like A (x_t/x)^(3/2), A of order
+    [eps]/eps.  A step of relative length g = dx/x errs by about A(x) g^6, so the steps grow as
+    g = JUMP_GROWTH (x/x_t)^(1/4), keeping that error even, until they reach the ordinary
+    start-up growth (0.6, times ``scale``): about 4/JUMP_GROWTH steps out to some 10^3 x_t.
+    """
+    ratios, r = [], 1.0
+    g0, top = JUMP_GROWTH * scale, DEFAULT_STEPS.startup_growth * scale
+    while g0 * r**0.25 < top:
+        r *= 1.0 + g0 * r**0.25
+        ratios.append(r)
+    return np.array(ratios)
+
+
 def _relative_error(err: np.ndarray) -> np.ndarray:
     """Relative error estimate of a star: the largest of those of R, M and M_b.
 
@@ -712,8 +749,26 @@ def _relative_error(err: np.ndarray) -> np.ndarray:
     return np.maximum(0.5 * eu, np.maximum(ev, ew) + 1.5 * eu)
 
 
-def _integrate(eos, h_c, control, response, envelope_fraction) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _integrate(eos, h_c, control, response, envelope_fraction
+               ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Integrate every star from its centre to h = 0.
+
+    Interior energy-density jumps (``eos.interior_jumps``, each a step edge
+    at its log-enthalpy h_t) are crossed exactly: u, v, w, omega and psi are
+    continuous there, and the tidal variable y jumps.  Its equation holds
+    the term (4 pi r^3 / (m + 4 pi r^3 p)) d eps/dh (from -(q/2) r^2 Q, with
+    e^lambda (1 - 2m/r) = 1), and d eps/dh carries -[eps] delta(h - h_t), so
+    going outwards across the jump
+
+        y(r_t+) = y(r_t-) - 4 pi r_t^3 [eps] / (m(r_t) + 4 pi r_t^3 p_t)
+                = y(r_t-) - 4 pi [eps] / (v + 4 pi p_t),
+
+    [eps] = eps(h_t+) - eps(h_t-) >= 0, the inner minus the outer energy
+    density.  With p_t = 0 this is the surface jump of Damour & Nagar
+    (2009, PRD 80, 084035) and Postnikov et al. (2010, eq. 14); in the
+    Newtonian limit it is -3 [eps] / <eps>, <eps> = 3 m / (4 pi r_t^3) the
+    mean density inside r_t.  The embedded error estimate of the step that
+    ends at a jump takes its last stage from that step's own (inner) piece.
 
     Returns
     -------
@@ -724,10 +779,30 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> tuple[np.ndarr
         over steps of |embedded Dormand-Prince estimate| / |state|.
     steps : ndarray of int, shape (n,)
         Steps of non-zero length taken by each star.
+    core : ndarray, shape (2, n)
+        (u, v) where the star crosses the first interior jump (NaN if it does
+        not); a core smaller than the central-series hand-over x_0 takes
+        them from the central series at x = h_c - h_t.
     """
     p_c, eps_c, rho_c = eos.state(h_c)
     x0 = control.start_offset * h_c
     deps_dh = eos.energy_density_slope(h_c)
+    n = h_c.size
+    core = np.full((2, n), np.nan)
+    jumps = getattr(eos, "interior_jumps", None)
+    if jumps is not None:
+        jump_h, jump_de, jump_p = (np.broadcast_to(a.reshape(a.shape[0], -1), (a.shape[0], n))
+                                   for a in (jumps.h, jumps.delta_eps, jumps.pressure))
+        # A jump inside the central-series region: the series holds only inside the core, so it hands
+        # over just inside the jump (the step to it stays in the core; the jump is then crossed as
+        # any other).  A core below JUMP_NEGLIGIBLE h_c in h (about 1e-6 of the radius) is too small
+        # to matter: the series from the centre phase takes it, its radius and mass from the series.
+        x_t = h_c[None, :] - jump_h
+        inside = (x_t > JUMP_NEGLIGIBLE * h_c) & (x_t < x0)
+        x0 = np.min(np.where(inside, x_t * (1.0 - 1e-9), x0), axis=0)
+        tiny = (x_t[0] > 0) & (x_t[0] <= JUMP_NEGLIGIBLE * h_c)
+        if tiny.any():
+            core[:, tiny] = central_series(p_c, eps_c, rho_c, deps_dh, x_t[0])[:2, tiny]
     y = central_series(p_c, eps_c, rho_c, deps_dh, x0)
     if response:
         y = np.concatenate([y, response_series(p_c, eps_c, deps_dh, h_c, x0)])
@@ -744,8 +819,20 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> tuple[np.ndarr
         always, density, breaks = _stacked_nodes(eos, control, h_c, rho_env)
     else:
         always, density, breaks = eos_nodes(eos, control, float(h_c.max()), float(rho_env.min()))
+    extra = None
+    if jumps is not None:
+        # Outside a core the mass of the core makes v = m/r^3 relax like (x_t/x)^(3/2), x = h_c - h the
+        # distance from the centre, with an amplitude of order [eps]/eps: as near the centre (the
+        # start-up), but with an O(1) amplitude, so steps of JUMP_GROWTH times x follow each jump
+        # for JUMP_REACH times its distance x_t (measured: M off by 4e-5 with the ordinary steps
+        # for a small core under a jump of 0.35 eps_t).
+        x_t = h_c[None, :] - jump_h
+        ratio = _jump_ratios(control.startup_growth / DEFAULT_STEPS.startup_growth)
+        e = h_c[None, None, :] - x_t[:, None, :] * ratio[None, :, None]
+        ok = (x_t[:, None, :] > x0[None, None, :]) & (e > 0) & np.isfinite(e)
+        extra = np.where(ok, e, 0.0).reshape(-1, n)
     edges = step_grid(always, density, breaks, h_c, x0, startup_end, h_env, control.startup_growth,
-                      control.enthalpy_step)
+                      control.enthalpy_step, extra)
     h_from, h_to = edges[:-1], edges[1:]
     steps = np.count_nonzero(h_from > h_to, axis=0)
     piece = eos.piece_index(0.5 * (h_from + h_to))
@@ -763,7 +850,6 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> tuple[np.ndarr
     k = np.empty((stages,) + y.shape)
     flat = k.reshape(stages, -1)  # the same memory, for one matrix-vector product per stage
     shape = y.shape
-    n = h_c.size
     # Error estimate of (u, v, w) only: p, eps and rho are continuous across EOS
     # breakpoints, so the next step's first stage is this step's seventh (FSAL);
     # the response equations see d eps/dh, which jumps there.
@@ -777,7 +863,7 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> tuple[np.ndarr
         em1 = np.expm1(hi)
         p, e, r = evaluate(hi, coeff, em1)
         if response:
-            response_rhs(hi, yi, p, e, r, slope(p, e, coeff), out=k[i], exp_h=1.0 + em1)
+            response_rhs(hi, yi, p, e, r, slope(p, e, coeff, hi), out=k[i], exp_h=1.0 + em1)
         else:
             structure_rhs(yi, p, e, r, out=k[i])
 
@@ -786,11 +872,29 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> tuple[np.ndarr
         dh = h_to[s] - h0
         idx = piece[s]
         coeff = {name: table[idx] for name, table in coeff_tables.items()}
+        crossing = None
+        if jumps is not None and s > 0:
+            at_jump = (jump_h == h0[None, :]) & (h_from[s - 1] > h0)[None, :]
+            if at_jump.any():
+                crossing = np.flatnonzero(at_jump.any(axis=0))
+                first = np.flatnonzero(at_jump[0])
+                core[:, first] = y[:2, first]
+                if response:
+                    for j in range(jump_h.shape[0]):
+                        sel = np.flatnonzero(at_jump[j])
+                        y[3, sel] -= FOUR_PI * jump_de[j, sel] / (y[1, sel] + FOUR_PI * jump_p[j, sel])
+                # the last stage of the step that ended here, on its own (inner) piece
+                inner = {name: table[piece[s - 1][crossing]] for name, table in coeff_tables.items()}
+                last_inner = structure_rhs(y[:3, crossing], *evaluate(h0[crossing], inner))
         for i in range(stages):
             yi = y if i == 0 else y + dh * (a[i, :i] @ flat[:i]).reshape(shape)
             rhs(i, np.maximum(h0 + c[i] * dh, h_guard), yi, coeff)
             if i == 0 and s > 0:
-                _accumulate(error, carry, dh_prev * e_last, k[0, :3], y[:3], scratch)
+                last = k[0, :3]
+                if crossing is not None:
+                    last = last.copy()
+                    last[:, crossing] = last_inner
+                _accumulate(error, carry, dh_prev * e_last, last, y[:3], scratch)
         # (u, v, w) are the first 3 n entries of each stage row of ``flat``
         np.dot(e_stages, flat[:, :n3], out=carry_flat)
         carry *= dh
@@ -800,7 +904,7 @@ def _integrate(eos, h_c, control, response, envelope_fraction) -> tuple[np.ndarr
     coeff = {name: table[piece[-1]] for name, table in coeff_tables.items()}
     rhs(0, h_guard, y, coeff)
     _accumulate(error, carry, dh_prev * e_last, k[0, :3], y[:3], scratch)
-    return y, error, steps
+    return y, error, steps, core
 
 
 def _accumulate(error, carry, last_weight, last_stage, state, scratch) -> None:

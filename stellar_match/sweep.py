@@ -23,7 +23,7 @@ from .eos import EquationOfState, central_enthalpy
 from .errors import ConfigError, InputError, RunFileError, StorageError
 from .exterior import star_columns
 from .runfile import RunFileWriter
-from .schema import BINARY_DATASETS, STAR_DATASETS, TARGET_DATASETS
+from .schema import BINARY_DATASETS, OPTIONAL_STAR_DATASETS, STAR_DATASETS, TARGET_DATASETS
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 
@@ -171,7 +171,8 @@ def write_sequence(eos: EquationOfState, h_all: np.ndarray, chunks, sink, *, con
     ``chunks`` yields the per-star columns in sweep order; only four columns
     of the whole sequence are kept in memory for the analysis.
     """
-    sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, dict(STAR_DATASETS))
+    columns = dict(STAR_DATASETS) | (OPTIONAL_STAR_DATASETS if eos.interior_jumps is not None else {})
+    sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, columns)
     kept = {k: np.empty(h_all.size) for k in _KEPT}
     start = 0
     for cols in chunks:
@@ -179,7 +180,7 @@ def write_sequence(eos: EquationOfState, h_all: np.ndarray, chunks, sink, *, con
         for k, arr in kept.items():
             arr[start : start + n] = cols[k]
         start += n
-        sink.append(eos.name, {k: cols[k] for k in STAR_DATASETS if k != "stable"})
+        sink.append(eos.name, {k: cols[k] for k in columns if k != "stable"})
 
     def refine(hc):
         r = solve_interiors(eos, hc, control=control)
@@ -474,33 +475,17 @@ def eos_from_sequence(seq: EOSSequence) -> EquationOfState:
         (the table changed since the sweep, so stars solved now would not
         belong to the stored sequence).
     """
-    from .eos import TableColumns, from_table, incompressible, polytrope, read_piecewise_polytrope
+    from .eos import registry
 
-    p = seq.parameters
-    try:
-        if seq.kind == "polytrope":
-            return polytrope(seq.name, float(p["K"]), float(p["gamma"]))
-        if seq.kind == "piecewise_polytrope":
-            return read_piecewise_polytrope(seq.name, float(p["log10_p1"]), p["gammas"])
-        if seq.kind == "incompressible":
-            return incompressible(seq.name, float(p["energy_density"]))
-        if seq.kind == "table":
-            cols = p["columns"]
-            density_kind = "baryon_density" if "baryon_density" in cols else "rest_mass_density"
-            columns = TableColumns(tuple(cols["pressure"]), tuple(cols["energy_density"]),
-                                   tuple(cols[density_kind]), density_kind)
-            eos = from_table(seq.name, p["path"], columns)
-            if seq.table_sha256 and eos.table_sha256 != seq.table_sha256:
-                raise InputError(
-                    f"table of EOS {seq.name!r} changed since the run (sha256 {eos.table_sha256[:12]}... "
-                    f"!= {seq.table_sha256[:12]}... in the run file); re-run the sweep",
-                    source=str(p["path"]),
-                )
-            return eos
-    except KeyError as exc:
-        raise InputError(f"EOS {seq.name!r}: run file lacks parameter {exc.args[0]!r}",
-                         key=f"eos/{seq.name}/parameters") from None
-    raise InputError(f"EOS {seq.name!r}: cannot rebuild kind {seq.kind!r}", key=f"eos/{seq.name}/kind")
+    eos = registry.rebuild_eos(seq.kind, seq.name, seq.parameters)
+    if seq.table_sha256 and eos.table_sha256 != seq.table_sha256:
+        path = eos.parameters.get("path") or eos.parameters.get("base", {}).get("path")
+        raise InputError(
+            f"table of EOS {seq.name!r} changed since the run (sha256 {eos.table_sha256[:12]}... "
+            f"!= {seq.table_sha256[:12]}... in the run file); re-run the sweep",
+            source=str(path),
+        )
+    return eos
 
 
 def _stable_branch(seq: EOSSequence, axis: str) -> tuple[np.ndarray, np.ndarray]:
@@ -555,10 +540,12 @@ def stars_at_masses(
         does not reach the mass (above M_max or below the lightest stable
         sample).
     """
-    axis = "central_pressure" if seq.kind == "incompressible" else "central_density"
+    axis = "central_density" if eos.density_axis else "central_pressure"
     x, m = _stable_branch(seq, axis)
     targets = np.atleast_1d(np.asarray(units.to_unit(masses, units.MASS_UNIT, name="masses"), dtype=float))
     names = [k for k in STAR_DATASETS if k != "stable"]
+    if eos.interior_jumps is not None:
+        names += list(OPTIONAL_STAR_DATASETS)
     out = {k: np.full(targets.size, np.nan) for k in names}
     if x.size < 2:
         return out

@@ -24,6 +24,14 @@ GRAVITATIONAL_CONSTANT_SI = 6.674_30e-11
 ELEMENTARY_CHARGE_SI = 1.602_176_634e-19
 #: Neutron rest energy, MeV.  CODATA 2018.
 NEUTRON_REST_ENERGY_MEV = 939.565_420_52
+#: Reduced Planck constant times c, MeV fm.  CODATA 2018 (exact h and c, exact e).
+HBAR_C_MEV_FM = 197.326_980_4
+#: Electron rest energy, MeV.  CODATA 2018.
+ELECTRON_REST_ENERGY_MEV = 0.510_998_950_00
+#: Atomic mass constant m_u (1/12 of the mass of a 12C atom) times c^2, MeV.  CODATA 2018.
+ATOMIC_MASS_UNIT_REST_ENERGY_MEV = 931.494_102_42
+#: Fine-structure constant.  CODATA 2018.
+FINE_STRUCTURE_CONSTANT = 7.297_352_5693e-3
 
 # --- Astronomical constants ------------------------------------------------
 #: Nominal solar mass parameter G M_sun, m^3/s^2.  IAU 2015 Resolution B3.
@@ -42,6 +50,8 @@ SOLAR_MASS_G = SOLAR_MASS_PARAMETER_SI / GRAVITATIONAL_CONSTANT_SI * 1e3
 SOLAR_MASS_KM = SOLAR_MASS_PARAMETER_SI / SPEED_OF_LIGHT_SI**2 / 1e3
 #: Neutron rest mass in grams (CODATA 2018 rest energy / c^2).
 NEUTRON_MASS_G = NEUTRON_REST_ENERGY_MEV * 1e6 * ELEMENTARY_CHARGE_SI * 1e7 / _C_CGS**2
+#: Atomic mass constant in grams (CODATA 2018 rest energy / c^2).
+ATOMIC_MASS_UNIT_G = ATOMIC_MASS_UNIT_REST_ENERGY_MEV * 1e6 * ELEMENTARY_CHARGE_SI * 1e7 / _C_CGS**2
 
 #: 1 MeV/fm^3 in erg/cm^3 (exact: 1 MeV = 1.602 176 634e-6 erg, 1 fm^3 = 1e-39 cm^3).
 MEV_PER_FM3_IN_ERG_PER_CM3 = ELEMENTARY_CHARGE_SI * 1e13 * 1e39

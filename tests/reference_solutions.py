@@ -139,3 +139,96 @@ def tidal_and_inertia_in_radius(eos, h_c: float, rtol: float = 1e-11):
     J = vp / j_R / 6  # omega' = varpi/(R^4 j); J = R^4 omega'(R)/6 with the true j(R) = 1
     I = J / (om + 2 * J / R**3)
     return R, M, k2, 2 / 3 * k2 / C**5, I
+
+
+def hybrid_star_in_radius(eos, h_c: float, rtol: float = 1e-11, smear: float = 1e-8):
+    """(R, M, M_b, k2, Lambda, I, r_core, m_core) in km for a star across an interior density jump.
+
+    An EOS with one energy-density jump (``eos.interior_jumps``: h_t, [eps], p_t) is integrated in
+    the r-form of :func:`tidal_and_inertia_in_radius`, extended by the baryon mass, in three legs:
+
+    1. from the centre to p = p_t (1 + L smear) in r, on the high-density phase;
+    2. across the jump with the pressure as the independent variable, on an EOS whose energy density
+       goes over smoothly from one side to the other, eps(p) = eps_out(p) + [eps_in(p) - eps_out(p)] S,
+       S = (1 + tanh((p - p_t)/(smear p_t)))/2, each side continued linearly in p with its own c_s^2.
+       The tidal equation then sees (eps + p) d eps/dp with the smooth spike [eps] S'(p): no jump
+       condition is assumed, the solver integrates through it (error O(smear));
+    3. from p_t (1 - L smear) to the surface, on the low-density phase.
+
+    Only the EOS's p, eps, rho and c_s^2 on either side are shared with the product.
+    """
+    h_t = float(eos.interior_jumps.h[0])
+    p_t = float(eos.interior_jumps.pressure[0])
+    assert h_c > h_t, "the star must have a core of the new phase"
+    p_c, e_c, rho_c = _state(eos, h_c)
+    in_side = [float(x[0]) for x in eos.state(np.array([h_t * (1 + 1e-13)]))]
+    out_side = [float(x[0]) for x in eos.state(np.array([h_t]))]
+    cs_in = float(eos.sound_speed_squared(np.array([h_t * (1 + 1e-13)]))[0])
+    cs_out = float(eos.sound_speed_squared(np.array([h_t]))[0])
+    width, L = smear * p_t, 20.0
+
+    def sharp(p):
+        h = float(eos.enthalpy_of_pressure(np.array([max(p, 0.0)]))[0])
+        _, e, rho = _state(eos, h)
+        cs2 = float(np.asarray(eos.sound_speed_squared(np.array([max(h, 1e-300)])))[0])
+        return e, rho, (0.0 if (not np.isfinite(cs2) or cs2 == 0.0) else (e + max(p, 0.0)) / cs2)
+
+    def smooth(p):
+        z = (p - p_t) / width
+        S, dS = 0.5 * (1 + np.tanh(z)), 0.5 / np.cosh(z) ** 2 / width
+        e_in, e_out = in_side[1] + (p - p_t) / cs_in, out_side[1] + (p - p_t) / cs_out
+        r_in, r_out = in_side[2] * (1 + (p - p_t) / (cs_in * (in_side[1] + p_t))), \
+            out_side[2] * (1 + (p - p_t) / (cs_out * (out_side[1] + p_t)))
+        e = e_out + (e_in - e_out) * S
+        de_dp = 1 / cs_out + (1 / cs_in - 1 / cs_out) * S + (e_in - e_out) * dS
+        return e, r_out + (r_in - r_out) * S, (e + p) * de_dp
+
+    def d_dr(r, s, eos_at):
+        p, m, mb, nu, y, om, vp = s
+        pp = max(p, 0.0)
+        e, rho, inv_cs2 = eos_at(pp)
+        elam = 1 / (1 - 2 * m / r)
+        dnu = 2 * (m + 4 * np.pi * r**3 * pp) / (r * (r - 2 * m))
+        Q = 4 * np.pi * elam * (5 * e + 9 * pp + inv_cs2) - 6 * elam / r**2 - dnu**2
+        dy = -(y * y + y * elam * (1 + 4 * np.pi * r * r * (pp - e)) + r * r * Q) / r
+        j = np.exp(-nu / 2) * np.sqrt(1 - 2 * m / r)
+        return np.array([-(e + pp) * dnu / 2, 4 * np.pi * r * r * e, 4 * np.pi * r * r * rho * np.sqrt(elam), dnu,
+                         dy, vp / (r**4 * j), 16 * np.pi * r**4 * (e + pp) * elam * j * om])
+
+    def reach(p_stop):
+        def ev(r, s):
+            return s[0] - p_stop
+        ev.terminal, ev.direction = True, -1
+        return ev
+
+    atol = [p_c * 1e-28, 1e-30, 1e-30, 1e-30, 1e-30, 1e-30, 1e-40]
+    r0 = 1e-5
+    s0 = [p_c - 2 * np.pi / 3 * (e_c + p_c) * (e_c + 3 * p_c) * r0**2, 4 * np.pi / 3 * e_c * r0**3,
+          4 * np.pi / 3 * rho_c * r0**3, 0.0, 2.0, 1.0, 16 * np.pi / 5 * (e_c + p_c) * r0**5]
+    leg1 = solve_ivp(lambda r, s: d_dr(r, s, sharp), (r0, 1e4), s0, method="DOP853", rtol=rtol, atol=atol,
+                     events=reach(p_t * (1 + L * smear)))
+    r1, s1 = leg1.t_events[0][0], leg1.y_events[0][0]
+
+    def d_dp(p, state):  # state (r, m, mb, nu, y, om, vp) with p as the variable
+        r, rest = state[0], state[1:]
+        f = d_dr(r, np.concatenate([[p], rest]), smooth)
+        return np.concatenate([[1.0], f[1:]]) / f[0]
+
+    leg2 = solve_ivp(d_dp, (p_t * (1 + L * smear), p_t * (1 - L * smear)), np.concatenate([[r1], s1[1:]]),
+                     method="DOP853", rtol=rtol, atol=[1e-30] * 7, max_step=width / 4, dense_output=True)
+    r2, rest = leg2.y[0, -1], leg2.y[1:, -1]
+    at_jump = leg2.sol(p_t)
+    core = (at_jump[0], at_jump[1])  # r and m at p = p_t
+    surface = reach(0.0)
+    leg3 = solve_ivp(lambda r, s: d_dr(r, s, sharp), (r2, 1e4), np.concatenate([[p_t * (1 - L * smear)], rest]),
+                     method="DOP853", rtol=rtol, atol=atol, events=surface)
+    R = leg3.t_events[0][0]
+    p, M, Mb, nu, y, om, vp = leg3.y_events[0][0]
+    C = M / R
+    y -= 4 * np.pi * R**3 * eos.surface_energy_density / M
+    k2 = hinderer_k2(C, y)
+    j_R = np.exp(-nu / 2) * np.sqrt(1 - 2 * C)
+    J = vp / j_R / 6
+    I = J / (om + 2 * J / R**3)
+    return R, M, Mb, k2, 2 / 3 * k2 / C**5, I, core[0], core[1]
+

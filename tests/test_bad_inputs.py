@@ -192,6 +192,17 @@ BINARY = '[[binary]]\nlabel = "b"\nchirp_mass = 1.2\nq_min = {q}\nlambda_tilde =
 MASS_SAMPLES = '[[mass]]\nlabel = "s"\nsamples = "s.csv"\ncolumn = "m"\n'
 ELLIPSE = ('[[ellipse]]\nlabel = "x"\nmass = 1.4\nradius = 12.0\nsigma_mass = 0.1\nsigma_radius = 0.5\n'
            'correlation = {rho}\n')
+QUARK = '[[eos]]\nname = "q"\nkind = "quark_matter"\n{extra}\n'
+SPECTRAL = '[[eos]]\nname = "s"\nkind = "spectral"\n{extra}\n'
+ELECTRONS = '[[eos]]\nname = "wd"\nkind = "electron_gas"\n{extra}\n'
+NODES = '[[eos]]\nname = "n"\nkind = "sound_speed_nodes"\ndensities = {rho}\nsound_speed_squared = {cs2}\n'
+SLY_INLINE = '{ kind = "piecewise_polytrope", log10_p1 = 34.384, gammas = [3.005, 2.988, 2.851] }'
+TABLE_INLINE = ('{ kind = "table", path = "t.csv", columns = { pressure = { column = "p", unit = "MeV/fm3" }, '
+                'energy_density = { column = "e", unit = "MeV/fm3" }, '
+                'baryon_density = { column = "nb", unit = "fm-3" } } }')
+TRANSITION = ('[[eos]]\nname = "pt"\nkind = "phase_transition"\nbase = '
+              + SLY_INLINE.replace("{", "{{").replace("}", "}}")
+              + '\ntransition_pressure = {p_t}\nenergy_density_jump = {jump}\nsound_speed_squared = {cs2}\n')
 LONG_NAME = "n" * 201
 SLY = SLY_BLOCK
 
@@ -260,6 +271,70 @@ CASES = [
                'energy_density = 1e15\n', "sweep.central_density"),
     sweep_case("ensemble_members_is_folder", AXIS5 + '[[ensemble]]\nname = "m"\nkind = "polytrope"\n'
                'members = "{folder}"\n', "ensemble[0].members"),
+    # -- config: the EOS kinds of issue 11 (one line naming the key, found before any star) ----------------
+    sweep_case("quark_bag_negative", AXIS5 + QUARK.format(extra="bag_constant = -5.0"), "eos[0].bag_constant"),
+    sweep_case("quark_bag_text", AXIS5 + QUARK.format(extra='bag_constant = "sixty"'), "eos[0].bag_constant"),
+    sweep_case("quark_bag_missing", AXIS5 + QUARK.format(extra=""), "eos[0].bag_constant", "missing"),
+    sweep_case("quark_cs2_above_1", AXIS5 + QUARK.format(extra="bag_constant = 60.0\nsound_speed_squared = 1.5"),
+               "eos[0].sound_speed_squared", "causality"),
+    sweep_case("quark_below_its_surface", AXIS5 + QUARK.format(extra="bag_constant = 60.0"),
+               "sweep.central_density", "surface"),
+    sweep_case("transition_jump_negative", AXIS5 + TRANSITION.format(p_t="1e35", jump="-1e14", cs2="1.0"),
+               "eos[0].energy_density_jump"),
+    sweep_case("transition_cs2_zero", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="0.0"),
+               "eos[0].sound_speed_squared"),
+    sweep_case("transition_pressure_negative", AXIS5 + TRANSITION.format(p_t="-1e35", jump="1e14", cs2="1.0"),
+               "eos[0].transition_pressure"),
+    sweep_case("transition_pressure_missing", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace("transition_pressure = 1e35\n", ""), "eos[0].transition_pressure", "missing"),
+    sweep_case("transition_beyond_the_base_table",
+               AXIS5 + TRANSITION.format(p_t="1e38", jump="1e14", cs2="1.0").replace(SLY_INLINE, TABLE_INLINE),
+               "eos[0].transition_pressure", "beyond", files={"t.csv": MEDIUM_TABLE.read_bytes()}),
+    sweep_case("transition_base_missing", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace(f"base = {SLY_INLINE}\n", ""), "eos[0].base", "missing"),
+    sweep_case("transition_base_kind_unknown", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace(SLY_INLINE, '{ kind = "quark_bag" }'), "eos[0].base.kind"),
+    sweep_case("transition_base_nested", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace(SLY_INLINE, '{ kind = "phase_transition" }'), "eos[0].base.kind"),
+    sweep_case("transition_base_key_missing", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace(SLY_INLINE, '{ kind = "polytrope", K = 1e5 }'), "eos[0].base.gamma", "missing"),
+    sweep_case("transition_base_bad_value", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace("log10_p1 = 34.384", "log10_p1 = 20.0"), "eos[0].base.log10_p1"),
+    sweep_case("transition_base_table_missing", AXIS5 + TRANSITION.format(p_t="1e35", jump="1e14", cs2="1.0")
+               .replace(SLY_INLINE, TABLE_INLINE), "eos[0].base.path", "t.csv"),
+    sweep_case("transition_ensemble_without_base", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "phase_transition"\n'
+               'sound_speed_squared = 1.0\n[ensemble.sample]\ncount = 2\nseed = 1\n'
+               'transition_pressure = [5e34, 1e35]\nenergy_density_jump = [1e14, 2e14]\n', "ensemble[0].base"),
+    sweep_case("quark_ensemble_column_missing", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "quark_matter"\n'
+               'members = "m.csv"\n', "ensemble[0].members", "bag_constant",
+               files={"m.csv": "sound_speed_squared\n0.3\n"}),
+    sweep_case("spectral_one_gamma", AXIS5 + SPECTRAL.format(extra="gammas = [1.0]"), "eos[0].gammas", "2 to 4"),
+    sweep_case("spectral_five_gammas", AXIS5 + SPECTRAL.format(extra="gammas = [1, 0, 0, 0, 0]"), "eos[0].gammas"),
+    sweep_case("spectral_gamma_vanishes", AXIS5 + SPECTRAL.format(extra="gammas = [1.0, -1.5]"), "eos[0].gammas",
+               "vanish"),
+    sweep_case("spectral_reference_pressure_in_the_core", AXIS5 + SPECTRAL.format(
+        extra="gammas = [1.0, 0.1]\nreference_pressure = 1e36"), "eos[0].reference_pressure"),
+    sweep_case("spectral_ensemble_gamma1_missing", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "spectral"\n'
+               '[ensemble.sample]\ncount = 2\nseed = 1\ngamma0 = [0.9, 1.0]\n', "ensemble[0].sample.gamma1"),
+    sweep_case("nodes_not_increasing", AXIS5 + NODES.format(rho="[3e14, 2e14]", cs2="[0.3, 0.4]"),
+               "eos[0].densities", "increase"),
+    sweep_case("nodes_lengths_differ", AXIS5 + NODES.format(rho="[2e14, 4e14]", cs2="[0.3]"),
+               "eos[0].sound_speed_squared", "one value per node"),
+    sweep_case("nodes_acausal", AXIS5 + NODES.format(rho="[2e14, 4e14]", cs2="[0.3, 1.01]"),
+               "eos[0].sound_speed_squared", "causality"),
+    sweep_case("nodes_join_in_the_outer_crust", AXIS5 + NODES.format(rho="[1e10, 4e14]", cs2="[0.3, 0.5]"),
+               "eos[0].densities"),
+    sweep_case("nodes_ensemble_without_densities", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "sound_speed_nodes"\n'
+               'members = "m.csv"\n', "ensemble[0].densities", "missing", files={"m.csv": "cs2_0\n0.3\n"}),
+    sweep_case("nodes_ensemble_nothing_varies", AXIS5 + '[[ensemble]]\nname = "e"\nkind = "sound_speed_nodes"\n'
+               'densities = [2e14, 4e14]\nsound_speed_squared = [0.3, 0.5]\nmembers = "m.csv"\n', "ensemble[0]",
+               "nothing varies", files={"m.csv": "x\n1\n"}),
+    sweep_case("electrons_mu_e_below_1", AXIS5 + ELECTRONS.format(extra="mu_e = 0.5"), "eos[0].mu_e"),
+    sweep_case("electrons_coulomb_text", AXIS5 + ELECTRONS.format(extra='mu_e = 2.0\ncoulomb_correction = "yes"'),
+               "eos[0].coulomb_correction", "true or false"),
+    sweep_case("electrons_charge_zero", AXIS5 + ELECTRONS.format(
+        extra="mu_e = 2.0\ncoulomb_correction = true\nnuclear_charge = 0"), "eos[0].nuclear_charge"),
+    sweep_case("electrons_mu_e_missing", AXIS5 + ELECTRONS.format(extra=""), "eos[0].mu_e", "missing"),
     # -- table files ------------------------------------------------------------------
     sweep_case("table_is_a_folder", AXIS5 + TABLE_BLOCK.format(path="{folder}"), "eos[0].path", "is a folder"),
     sweep_case("table_is_dev_null", AXIS5 + TABLE_BLOCK.format(path="/dev/null"), "eos[0].path", "/dev/null"),

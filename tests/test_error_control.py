@@ -170,3 +170,37 @@ def test_a_star_the_budget_cannot_fix_is_nan_with_status_1():
     stars = solve_interiors(eos, h, control=replace(DEFAULT_STEPS, tolerance=1e-12, max_refinements=0))
     assert list(stars.status) == [1, 1]
     assert np.all(np.isnan(stars.mass)) and np.all(stars.error_estimate > 1e-12)
+
+
+# The kinds of issue 11 over wide ranges (few examples each: their references are slower).  Spectral
+# coefficients over Lindblom's (2010) prior (from memory), with runaway (Gamma -> 0) EOS and central densities
+# beyond their end an InputError; sound speeds at three nodes anywhere in (0, 1]; bag constants and sound
+# speeds of quark matter; white dwarfs of any composition, with or without the lattice term.
+@settings(PROPERTY, max_examples=6)
+@given(gammas=st.tuples(st.floats(0.2, 2.0), st.floats(-1.6, 1.7), st.floats(-0.6, 0.6), st.floats(-0.02, 0.02)),
+       rho_c=st.floats(14.2, np.log10(4e15)))
+def test_spectral_over_a_wide_prior(gammas, rho_c):
+    try:
+        eos = sm.spectral("spectral", list(gammas))
+        check_stars(eos, [10.0**rho_c])
+    except InputError:
+        event("cannot be built or beyond its range")
+
+
+@settings(PROPERTY, max_examples=5)
+@given(cs2=st.lists(st.floats(0.01, 1.0), min_size=3, max_size=3), rho_c=st.floats(14.3, np.log10(4e15)))
+def test_sound_speed_nodes_anywhere_causal(cs2, rho_c):
+    check_stars(sm.sound_speed_nodes("nodes", [1.5e14, 4e14, 1.2e15], cs2), [10.0**rho_c])
+
+
+@settings(PROPERTY, max_examples=5)
+@given(bag=st.floats(30.0, 200.0), cs2=st.floats(0.1, 1.0), over=st.floats(0.01, 2.0))
+def test_quark_matter_bag_constants_and_sound_speeds(bag, cs2, over):
+    eos = sm.quark_matter("quark", bag, cs2)
+    check_stars(eos, [units.density_from_geometric(eos.surface_density) * 10.0**over])
+
+
+@settings(PROPERTY, max_examples=4)
+@given(mu_e=st.floats(1.0, 3.0), lattice=st.booleans(), rho_c=st.floats(4.0, 11.0))
+def test_white_dwarfs_of_any_composition(mu_e, lattice, rho_c):
+    check_stars(sm.electron_gas("wd", mu_e, lattice, 12.0), [10.0**rho_c])

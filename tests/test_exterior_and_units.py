@@ -20,6 +20,16 @@ def test_constants_match_astropy_codata2018_and_iau2015():
     assert units.NEUTRON_MASS_G == pytest.approx(codata2018.m_n.cgs.value, rel=1e-9)
 
 
+def test_particle_constants_match_astropy_codata2018():
+    # hbar c, m_e c^2, m_u c^2 and alpha of the quark-matter and electron-gas kinds (issue 11)
+    mev_fm = au.MeV * au.fm
+    assert units.HBAR_C_MEV_FM == pytest.approx((codata2018.hbar * codata2018.c).to(mev_fm).value, rel=1e-9)
+    assert units.ELECTRON_REST_ENERGY_MEV == pytest.approx((codata2018.m_e * codata2018.c**2).to(au.MeV).value,
+                                                           rel=1e-9)
+    assert units.ATOMIC_MASS_UNIT_G == pytest.approx(codata2018.u.cgs.value, rel=1e-9)
+    assert units.FINE_STRUCTURE_CONSTANT == pytest.approx(codata2018.alpha.value, rel=1e-12)
+
+
 def test_conversions_match_astropy_units():
     # MeV/fm^3 -> erg/cm^3 (exact from the SI value of e); geometric factors G/c^2, G/c^4.
     assert units.MEV_PER_FM3_IN_ERG_PER_CM3 == pytest.approx((1 * au.MeV / au.fm**3).to(au.erg / au.cm**3).value,

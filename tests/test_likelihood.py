@@ -577,3 +577,23 @@ def test_binary_samples_reflected_at_q_equal_one():
     expected = np.logaddexp(kde.logpdf(pts.T), mirror)
     assert np.allclose(dist.logpdf(a, b), expected, atol=1e-5)
     assert dist.logpdf(np.array([1.01]), np.array([400.0]))[0] == -np.inf
+
+
+def test_sampler_over_a_kind_with_fixed_keys(constraints):
+    # Every ensemble kind samples (issue 11): a phase transition on a fixed base, its three parameters in the
+    # member-column order; the call equals scoring the same EOS built directly and swept (definition).
+    base = {"kind": "piecewise_polytrope", "log10_p1": 34.384, "gammas": [3.005, 2.988, 2.851]}
+    like = sm.EOSLikelihood("phase_transition", constraints, fixed={"base": base})
+    assert like.parameter_names == ("transition_pressure", "energy_density_jump", "sound_speed_squared")
+    theta = [2.0e35, 2.0e14, 1.0]
+    eos = sm.phase_transition("pt", sm.read_piecewise_polytrope("sly", 34.384, [3.005, 2.988, 2.851]), *theta)
+    seq = sm.sweep_eos(eos, "central_density", sm.inference.DEFAULT_CENTRAL_DENSITIES)
+    ll, _ = log_likelihoods(sm.likelihood.branches_of_sequence(seq), constraints)
+    assert like(theta) == pytest.approx(ll[0].sum(), abs=1e-3)
+    spectral = sm.EOSLikelihood("spectral", constraints, parameter_names=["gamma0", "gamma1", "gamma2"])
+    assert len(spectral.parameter_names) == 3
+    for kwargs in ({"fixed": {"base": {"kind": "nonsense"}}}, {"parameter_names": ["gamma1", "gamma0"]},
+                   {"fixed": "base"}):
+        with pytest.raises(sm.InputError):
+            sm.EOSLikelihood("spectral" if "parameter_names" in kwargs else "phase_transition", constraints,
+                             **kwargs)

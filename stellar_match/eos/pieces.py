@@ -1,150 +1,45 @@
-"""Equations of state, parametrised by the log-enthalpy.
+"""Power-law pieces: polytropes, Read et al. piecewise polytropes and tables.
 
-The structure solver asks an EOS for pressure, energy density and rest-mass
-density as functions of the dimensionless log-enthalpy
+:class:`PiecewisePolytrope` -- any number of pieces p = K rho^Gamma with the
+energy density fixed by the first law,
+eps = (1 + a_i) rho + K_i rho^Gamma_i / (Gamma_i - 1)
+(Read, Lackey, Owen & Friedman 2009, PRD 79, 124032, eqs. 3-7).  A single
+polytrope, the Read et al. parametrisation and tabulated EOS (one piece per
+table interval, see :func:`from_table`) are all instances.  Every piece is
+inverted analytically in h, so no root finding happens during a solve.
 
-    h = integral_0^p dp' / (eps(p') + p'),
-
-which is zero at the stellar surface (Lindblom 1992, ApJ 398, 569).  All
-quantities returned here are geometric (G = c = 1, lengths in km, densities
-in km^-2); see :mod:`stellar_match.units`.
-
-Three families share one evaluation path:
-
-* :class:`PiecewisePolytrope` -- any number of pieces p = K rho^Gamma with the
-  energy density fixed by the first law,
-  eps = (1 + a_i) rho + K_i rho^Gamma_i / (Gamma_i - 1)
-  (Read, Lackey, Owen & Friedman 2009, PRD 79, 124032, eqs. 3-7).  A single
-  polytrope, the Read et al. parametrisation and tabulated EOS (one piece per
-  table interval, see :func:`from_table`) are all instances.  Every piece is
-  inverted analytically in h, so no root finding happens during a solve.
-* :class:`Incompressible` -- constant energy density, the validation case with
-  the exact interior solution of Schwarzschild (1916).
-
-Factory functions at the bottom build these from physical (cgs) parameters.
+Factory functions build these from physical (cgs) parameters.  The SLy crust
+fit of Read et al. (:data:`SLY_CRUST`) is also the crust of the spectral and
+sound-speed kinds.
 """
 
 from __future__ import annotations
 
 import hashlib
 import io
-from abc import ABC, abstractmethod
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from . import units
-from .errors import InputError, TableError
+from .. import units
+from ..errors import InputError, TableError
+from . import registry
+from .base import EquationOfState
 
 __all__ = [
-    "EquationOfState",
     "PiecewisePolytrope",
-    "Incompressible",
     "polytrope",
     "read_piecewise_polytrope",
     "from_table",
-    "incompressible",
     "SLY_CRUST",
-    "central_enthalpy",
     "READ_CORE_DIVIDING_DENSITIES",
+    "TableColumns",
+    "read_table_file",
+    "sly_crust_dividing_densities",
+    "sly_crust",
+    "FIRST_LAW_TOLERANCE",
 ]
-
-
-class EquationOfState(ABC):
-    """Interface between an EOS and the structure solver (geometric units).
-
-    Attributes
-    ----------
-    name : str
-        The user's label for this EOS.
-    kind : str
-        The config ``kind`` it was built from.
-    parameters : dict
-        The physical parameters it was built from (JSON-serialisable).
-    breakpoints_h : ndarray, shape (n_pieces - 1,)
-        Log-enthalpies of the piece boundaries, ascending, all > 0.  The
-        solver places step boundaries exactly here.
-    h_max : float
-        Largest log-enthalpy at which the EOS is defined (inf if unbounded).
-    table_sha256 : str or None
-        SHA-256 of the table file for tabulated EOS.
-    """
-
-    name: str
-    kind: str
-    parameters: dict
-    breakpoints_h: np.ndarray
-    h_max: float
-    table_sha256: str | None = None
-
-    @abstractmethod
-    def piece_index(self, h: np.ndarray) -> np.ndarray:
-        """Index of the piece containing each log-enthalpy (boundaries go down)."""
-
-    @abstractmethod
-    def piece_arrays(self) -> dict[str, np.ndarray]:
-        """Per-piece coefficient arrays consumed by :meth:`state_from_coefficients`."""
-
-    @staticmethod
-    @abstractmethod
-    def state_from_coefficients(h, coeff, expm1_h=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """(p, eps, rho) at ``h`` given per-point coefficients ``coeff``.
-
-        The solver gathers coefficients once per step and calls this once per
-        stage; it is the hot path.  ``expm1_h``, if given, is expm1(h),
-        computed once per stage and shared with the response equations.
-        """
-
-    @staticmethod
-    @abstractmethod
-    def slope_from_coefficients(p, eps, coeff) -> np.ndarray:
-        """d eps / d h = (eps + p) / c_s^2 from (p, eps) and per-point coefficients."""
-
-    #: Energy density just inside the surface (km^-2): 0 unless the EOS ends in a jump.
-    surface_energy_density: float = 0.0
-
-    def state(self, h) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Pressure, energy density and rest-mass density at log-enthalpy ``h``.
-
-        Parameters
-        ----------
-        h : array_like
-            Log-enthalpy, 0 <= h <= ``h_max``.
-
-        Returns
-        -------
-        p, eps, rho : ndarray
-            Geometric units, km^-2.
-        """
-        h = np.asarray(h, dtype=float)
-        return self.state_from_coefficients(h, self.coefficients_at(h))
-
-    def coefficients_at(self, h) -> dict[str, np.ndarray]:
-        """The per-piece coefficients gathered at each log-enthalpy ``h``."""
-        idx = self.piece_index(np.asarray(h, dtype=float))
-        return {k: v[idx] for k, v in self.piece_arrays().items()}
-
-    @abstractmethod
-    def energy_density_slope(self, h) -> np.ndarray:
-        """d eps / d h (km^-2) at ``h``: (eps + p) / c_s^2 for a barotropic fluid."""
-
-    @abstractmethod
-    def enthalpy_of_density(self, rho) -> np.ndarray:
-        """Log-enthalpy at rest-mass density ``rho`` (km^-2)."""
-
-    @abstractmethod
-    def enthalpy_of_pressure(self, p) -> np.ndarray:
-        """Log-enthalpy at pressure ``p`` (km^-2)."""
-
-    @abstractmethod
-    def max_sound_speed_squared(self, h_top: float) -> float:
-        """Largest c_s^2 / c^2 for 0 <= h <= ``h_top``."""
-
-    def sound_speed_squared(self, h) -> np.ndarray:
-        """Squared sound speed dp/d eps in units of c^2."""
-        p, eps, _ = self.state(h)
-        return (eps + p) / np.asarray(self.energy_density_slope(h))
 
 
 @dataclass(eq=False)
@@ -167,6 +62,11 @@ class PiecewisePolytrope(EquationOfState):
     parameters : dict
         Physical parameters for the run file.
     """
+
+    #: Coefficients that keep the formula finite on pieces of other families (see :mod:`.joined`):
+    #: rho = e^h, p = e^(2h).
+    NEUTRAL_COEFFICIENTS = {"K": 1.0, "c1": 1.0, "inv_gm1": 1.0, "one_plus_a": 1.0, "shift": 1.0, "mu_s": 1.0,
+                            "gamma": 2.0}
 
     name: str
     kind: str
@@ -241,7 +141,7 @@ class PiecewisePolytrope(EquationOfState):
         return p, eps, rho
 
     @staticmethod
-    def slope_from_coefficients(p, eps, coeff):
+    def slope_from_coefficients(p, eps, coeff, h=None):
         # c_s^2 = Gamma p / (eps + p) inside a piece, so d eps/dh = (eps + p)^2 / (Gamma p);
         # at the surface itself (p = 0) the limit is 0 for Gamma < 2, the usual crust case; for
         # Gamma > 2 it diverges, which the solver avoids by never evaluating at h = 0 exactly
@@ -254,7 +154,7 @@ class PiecewisePolytrope(EquationOfState):
         h = np.asarray(h, dtype=float)
         coeff = self.coefficients_at(h)
         p, eps, _ = self.state_from_coefficients(h, coeff)
-        return self.slope_from_coefficients(p, eps, coeff)
+        return self.slope_from_coefficients(p, eps, coeff, h)
 
     def sound_speed_squared(self, h):
         h = np.asarray(h, dtype=float)
@@ -290,64 +190,6 @@ class PiecewisePolytrope(EquationOfState):
         return float(np.max(self.gamma[pieces] * p / (eps + p)))
 
 
-@dataclass(eq=False)
-class Incompressible(EquationOfState):
-    """Constant energy density eps_0 at every pressure (Schwarzschild 1916).
-
-    Since h = ln((eps_0 + p)/eps_0), p(h) = eps_0 (e^h - 1).  The sound speed is
-    infinite, so this EOS is never causal; it exists to validate the solver
-    and the surface match against the exact interior solution.  Its
-    "rest-mass density" is taken as eps_0 (no internal energy).
-    """
-
-    name: str
-    energy_density: float  # km^-2
-    kind: str = "incompressible"
-    parameters: dict = field(default_factory=dict)
-    h_max: float = np.inf
-
-    def __post_init__(self) -> None:
-        if not np.isfinite(self.energy_density) or self.energy_density <= 0:
-            raise InputError("energy_density must be positive and finite")
-        self.breakpoints_h = np.empty(0)
-        self._coeff = {"eps0": np.array([self.energy_density])}
-        self.surface_energy_density = self.energy_density
-
-    def piece_index(self, h):
-        return np.zeros(np.shape(h), dtype=np.intp)
-
-    def piece_arrays(self):
-        return self._coeff
-
-    @staticmethod
-    def state_from_coefficients(h, coeff, expm1_h=None):
-        eps0 = coeff["eps0"]
-        p = eps0 * (np.expm1(h) if expm1_h is None else expm1_h)
-        eps = eps0 + 0.0 * p
-        return p, eps, eps
-
-    @staticmethod
-    def slope_from_coefficients(p, eps, coeff):
-        return np.zeros_like(p)
-
-    def energy_density_slope(self, h):
-        return np.zeros(np.shape(h))
-
-    def sound_speed_squared(self, h):
-        return np.full(np.shape(h), np.inf)
-
-    def enthalpy_of_density(self, rho):
-        raise InputError(
-            "an incompressible EOS has no rest-mass density axis; sweep `central_pressure`"
-        )
-
-    def enthalpy_of_pressure(self, p):
-        return np.log1p(np.asarray(p, dtype=float) / self.energy_density)
-
-    def max_sound_speed_squared(self, h_top):
-        return np.inf
-
-
 # --- Factories from physical (cgs) parameters -------------------------------
 
 #: SLy crust fit of Read et al. 2009, Table II (from memory, as listed in
@@ -381,6 +223,17 @@ def sly_crust_dividing_densities() -> np.ndarray:
     K = np.array([k for k, _, _ in SLY_CRUST])
     g = np.array([g for _, g, _ in SLY_CRUST])
     return (K[:-1] / K[1:]) ** (1.0 / (g[1:] - g[:-1]))
+
+
+def sly_crust(name: str, kind: str) -> PiecewisePolytrope:
+    """The four-piece SLy crust fit of Read et al. (2009, Table II), its last piece continued upwards.
+
+    The crust of the spectral and sound-speed kinds, which join it where their own core begins.
+    """
+    g = np.array([g for _, g, _ in SLY_CRUST])
+    K = _geometric_K(np.array([k for k, _, _ in SLY_CRUST]) * _C2_CGS, g)  # p/c^2 -> dyn/cm^2
+    lower = np.array([0.0, *sly_crust_dividing_densities()]) * units.DENSITY_CGS_TO_GEOM
+    return PiecewisePolytrope(name=name, kind=kind, lower_densities=lower, K=K, gamma=g)
 
 
 def polytrope(name: str, K: float, gamma: float) -> PiecewisePolytrope:
@@ -478,24 +331,6 @@ def read_piecewise_polytrope(
         K=K,
         gamma=g,
         parameters={"log10_p1": float(log10_p1), "gammas": gammas, "crust": "SLy (Read et al. 2009)"},
-    )
-
-
-def incompressible(name: str, energy_density: float) -> Incompressible:
-    """Uniform-density EOS with energy density ``energy_density`` (g/cm^3, eps/c^2).
-
-    A Quantity may be a mass density or an energy density (erg/cm^3, MeV/fm^3, J/m^3: divided by c^2).
-    """
-    energy_density = units.to_unit(energy_density, units.DENSITY_UNIT, name="energy_density")
-    if not (np.isfinite(energy_density) and energy_density > 0):
-        raise InputError(
-            f"energy_density must be positive (g/cm^3), got {energy_density!r}",
-            key="energy_density",
-        )
-    return Incompressible(
-        name=name,
-        energy_density=energy_density * units.DENSITY_CGS_TO_GEOM,
-        parameters={"energy_density": energy_density, "energy_density_unit": "g/cm3"},
     )
 
 
@@ -695,105 +530,114 @@ def from_table(name: str, path: str | Path, columns: TableColumns) -> PiecewiseP
     return eos
 
 
-class EOSStack:
-    """Several piecewise polytropes with the same number of pieces, solved as one batch.
+# --- Kinds -------------------------------------------------------------------
 
-    Ensembles solve the stars of many members together: every star carries
-    the index of its member, and the per-piece coefficients of all members
-    sit in one flat table.  :meth:`bind` returns the object the solver uses.
+_DENSITY_KINDS = ("baryon_density", "rest_mass_density")
 
-    Parameters
-    ----------
-    members : list of PiecewisePolytrope
-        The members; all must have the same number of pieces.
+
+def check_table_file(path: Path) -> None:
+    """Refuse a table path that is no readable CSV file (an InputError naming the key ``path``).
+
+    Checked before the table is read: a FIFO or device would block or read
+    forever, and a folder, an empty file or a binary file would otherwise
+    surface as a puzzling parse error.
     """
+    import stat
 
-    def __init__(self, members: list[PiecewisePolytrope]) -> None:
-        if not members:
-            raise ValueError("an EOS stack needs at least one member")
-        pieces = {m.gamma.size for m in members}
-        if len(pieces) != 1:
-            raise ValueError("stacked EOS must all have the same number of pieces")
-        self.members = members
-        self.n_pieces = pieces.pop()
-        self.breakpoints = np.array([m.breakpoints_h for m in members]).reshape(len(members), self.n_pieces - 1)
-        self.coeff = {k: np.concatenate([m.piece_arrays()[k] for m in members]) for k in members[0].piece_arrays()}
+    def fail(message: str) -> InputError:
+        return InputError(f"table file {path} {message}", key="path")
 
-    def bind(self, member) -> BoundEOSStack:
-        """The stack seen by a batch whose star j belongs to member ``member[j]``."""
-        return BoundEOSStack(self, np.asarray(member, dtype=np.intp))
-
-
-class BoundEOSStack:
-    """An :class:`EOSStack` with a member index per star (the solver's EOS for ensembles).
-
-    Methods take arrays whose last axis runs over the batch's stars.
-    """
-
-    surface_energy_density = 0.0
-    h_max = np.inf
-    state_from_coefficients = staticmethod(PiecewisePolytrope.state_from_coefficients)
-    slope_from_coefficients = staticmethod(PiecewisePolytrope.slope_from_coefficients)
-
-    def __init__(self, stack: EOSStack, member: np.ndarray) -> None:
-        self.stack, self.member = stack, member
-        self.offset = member * stack.n_pieces
-        self.star_breakpoints = stack.breakpoints[member]  # (n, P - 1)
-
-    def select(self, stars) -> BoundEOSStack:
-        """The same stack bound to a subset of this batch's stars."""
-        return BoundEOSStack(self.stack, self.member[stars])
-
-    def piece_index(self, h):
-        h = np.asarray(h, dtype=float)
-        local = (self.star_breakpoints < h[..., None]).sum(axis=-1)
-        return self.offset + local
-
-    def piece_arrays(self):
-        return self.stack.coeff
-
-    def _per_star(self, fn_name: str, values):
-        values = np.asarray(values, dtype=float)
-        out = np.empty(values.shape)
-        for m in np.unique(self.member):
-            sel = self.member == m
-            out[..., sel] = getattr(self.stack.members[m], fn_name)(values[..., sel])
-        return out
-
-    # the same per-point evaluation as a single EOS, through piece_index / piece_arrays
-    state = EquationOfState.state
-    coefficients_at = EquationOfState.coefficients_at
-    energy_density_slope = PiecewisePolytrope.energy_density_slope
-
-    def enthalpy_of_density(self, rho):
-        return self._per_star("enthalpy_of_density", rho)
+    try:
+        mode = path.stat().st_mode
+    except FileNotFoundError:
+        raise fail("not found") from None
+    except OSError as exc:
+        raise fail(f"cannot be read ({exc.strerror})") from None
+    if stat.S_ISDIR(mode):
+        raise fail("is a folder, not a CSV table")
+    if not stat.S_ISREG(mode):
+        raise fail("is not a regular file (a device, pipe or socket)")
+    try:
+        with path.open("rb") as f:
+            head = f.read(8192)
+    except OSError as exc:
+        raise fail(f"cannot be read ({exc.strerror or exc})") from None
+    if not head:
+        raise fail("is empty")
+    if b"\0" in head:  # text never holds NUL bytes; binaries nearly always do
+        raise fail("is a binary file, not a CSV table")
 
 
-def central_enthalpy(eos: EquationOfState, quantity: str, values) -> np.ndarray:
-    """Central log-enthalpies for central densities (g/cm^3) or pressures (dyn/cm^2), or Quantities.
+def _parse_columns(reader: registry.KeyReader) -> TableColumns:
+    cols = reader.table("columns")
+    key = "columns"
+    allowed = {"pressure", "energy_density", *_DENSITY_KINDS}
+    for k in cols:
+        if k not in allowed:
+            raise reader.fail(f"{key}.{k}", f"unknown key (expected one of: {', '.join(sorted(allowed))})")
+    parts = {}
+    for q in ("pressure", "energy_density", *_DENSITY_KINDS):
+        if q not in cols:
+            continue
+        spec = cols[q]
+        if not isinstance(spec, dict):
+            raise reader.fail(f"{key}.{q}", f"needs a table, got {type(spec).__name__}")
+        for k in spec:
+            if k not in {"column", "unit"}:
+                raise reader.fail(f"{key}.{q}.{k}", "unknown key (expected one of: column, unit)")
+        for k in ("column", "unit"):
+            if not isinstance(spec.get(k), str):
+                raise reader.fail(f"{key}.{q}.{k}", "missing or not a string")
+        parts[q] = (spec["column"], spec["unit"])
+    for q in ("pressure", "energy_density"):
+        if q not in parts:
+            raise reader.fail(f"{key}.{q}", "missing")
+    dens = [q for q in _DENSITY_KINDS if q in parts]
+    if len(dens) != 1:
+        raise reader.fail(key, "needs exactly one of baryon_density or rest_mass_density")
+    return TableColumns(parts["pressure"], parts["energy_density"], parts[dens[0]], dens[0])
 
-    Raises
-    ------
-    InputError
-        For values outside a table's range or the wrong axis for the EOS.
-    """
-    unit = units.DENSITY_UNIT if quantity == "central_density" else units.PRESSURE_UNIT
-    values = np.asarray(units.to_unit(values, unit, name=quantity), dtype=float)
-    if np.any(~np.isfinite(values) | (values <= 0)):
-        raise InputError(f"{quantity} values must be positive and finite", key=f"sweep.{quantity}")
-    if quantity == "central_density":
-        h = eos.enthalpy_of_density(units.density_to_geometric(values))
-    elif quantity == "central_pressure":
-        h = eos.enthalpy_of_pressure(units.pressure_to_geometric(values))
-    else:
-        raise ValueError(f"unknown sweep quantity {quantity!r}")
-    if np.any(h > eos.h_max * (1 + 1e-12)):
-        top = values[np.argmax(h)]
-        unit = "g/cm3" if quantity == "central_density" else "dyn/cm2"
-        lo, hi = getattr(eos, "table_density_range", (np.nan, np.nan))
-        raise InputError(
-            f"{top:.4g} {unit} lies beyond the table of EOS {eos.name!r} "
-            f"(rest-mass density up to {hi:.4g} g/cm3)",
-            key=f"sweep.{quantity}",
-        )
-    return h
+
+def _build_table(name: str, options: dict) -> PiecewisePolytrope:
+    path = Path(options["path"])
+    check_table_file(path)
+    return from_table(name, path, options["columns"])
+
+
+def _rebuild_table(name: str, p: dict) -> PiecewisePolytrope:
+    cols = p["columns"]
+    density_kind = "baryon_density" if "baryon_density" in cols else "rest_mass_density"
+    columns = TableColumns(tuple(cols["pressure"]), tuple(cols["energy_density"]), tuple(cols[density_kind]),
+                           density_kind)
+    return from_table(name, p["path"], columns)
+
+
+registry.register(registry.EOSKind(
+    name="polytrope",
+    keys=("K", "gamma"),
+    required=("K", "gamma"),
+    parse=lambda r: {"K": r.number("K"), "gamma": r.number("gamma")},
+    build=lambda name, o: polytrope(name, o["K"], o["gamma"]),
+    columns=(registry.Column("K"), registry.Column("gamma")),
+    summary="p = K rho^gamma, eps = rho c^2 + p/(gamma - 1)",
+))
+registry.register(registry.EOSKind(
+    name="piecewise_polytrope",
+    keys=("log10_p1", "gammas"),
+    required=("log10_p1", "gammas"),
+    parse=lambda r: {"log10_p1": r.number("log10_p1"),
+                     "gammas": r.numbers("gammas", min_count=3, max_count=3, usage="[G1, G2, G3]")},
+    build=lambda name, o: read_piecewise_polytrope(name, o["log10_p1"], o["gammas"]),
+    columns=(registry.Column("log10_p1"),
+             registry.Column("gammas", element=lambda k: f"gamma{k + 1}", min_count=3, max_count=3)),
+    summary="Read et al. (2009) three core pieces on the SLy crust",
+))
+registry.register(registry.EOSKind(
+    name="table",
+    keys=("path", "columns"),
+    required=("path", "columns"),
+    parse=lambda r: {"path": r.path("path"), "columns": _parse_columns(r)},
+    build=_build_table,
+    rebuild=_rebuild_table,
+    summary="CSV table, power law in p(rho) per interval, eps from the first law",
+))
