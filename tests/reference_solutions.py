@@ -232,3 +232,30 @@ def hybrid_star_in_radius(eos, h_c: float, rtol: float = 1e-11, smear: float = 1
     I = J / (om + 2 * J / R**3)
     return R, M, Mb, k2, 2 / 3 * k2 / C**5, I, core[0], core[1]
 
+
+
+def assert_star_matches_references(eos, h_c: float, *, response: bool = True, k2: bool = True,
+                                   structure_rtol: float = 1e-6, response_rtol: float = 1e-5) -> None:
+    """Solve one star with the package and check it against the references above.
+
+    M, R, M_b against :func:`tov_in_enthalpy` (``structure_rtol``); with
+    ``response``, Lambda and I (and k2 unless ``k2=False``) against
+    :func:`tidal_and_inertia_in_radius` (``response_rtol``).
+    """
+    import pytest
+
+    from stellar_match.structure import solve_interiors
+
+    star = solve_interiors(eos, np.array([h_c]), response=response)
+    assert star.status[0] == 0
+    R, M, Mb = tov_in_enthalpy(eos, h_c)
+    assert star.mass[0] == pytest.approx(M, rel=structure_rtol)
+    assert star.radius[0] == pytest.approx(R, rel=structure_rtol)
+    assert star.baryon_mass[0] == pytest.approx(Mb, rel=structure_rtol)
+    if not response:
+        return
+    _, _, k2_ref, lam, inertia = tidal_and_inertia_in_radius(eos, h_c)
+    if k2:
+        assert star.love_number_k2[0] == pytest.approx(k2_ref, rel=response_rtol)
+    assert star.tidal_deformability[0] == pytest.approx(lam, rel=response_rtol)
+    assert star.moment_of_inertia[0] == pytest.approx(inertia, rel=response_rtol)

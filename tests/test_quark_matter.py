@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-from reference_solutions import tidal_and_inertia_in_radius, tov_in_enthalpy
+from reference_solutions import assert_star_matches_references
 
 import stellar_match as sm
 from stellar_match import units
@@ -47,16 +47,7 @@ def test_quark_stars_against_solve_ivp(rho_c):
     # -4 pi R^3 eps(R-)/M (Damour & Nagar 2009) and Hartle's frame dragging for k2, Lambda, I (1e-5).
     eos = quark_matter("q", 57.0)
     h = float(_h(eos, [rho_c])[0])
-    star = solve_interiors(eos, np.array([h]))
-    assert star.status[0] == 0
-    R, M, Mb = tov_in_enthalpy(eos, h)
-    assert star.mass[0] == pytest.approx(M, rel=1e-6)
-    assert star.radius[0] == pytest.approx(R, rel=1e-6)
-    assert star.baryon_mass[0] == pytest.approx(Mb, rel=1e-6)
-    _, _, k2, lam, inertia = tidal_and_inertia_in_radius(eos, h)
-    assert star.love_number_k2[0] == pytest.approx(k2, rel=1e-5)
-    assert star.tidal_deformability[0] == pytest.approx(lam, rel=1e-5)
-    assert star.moment_of_inertia[0] == pytest.approx(inertia, rel=1e-5)
+    assert_star_matches_references(eos, h)
 
 
 def test_a_small_quark_star_is_a_uniform_newtonian_sphere():
