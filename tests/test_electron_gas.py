@@ -101,10 +101,26 @@ def test_salpeter_lattice_term_gives_a_bare_surface_and_lighter_stars():
     # 1e-3), the surface density jumps from 0 to rho(x_0), and the (negative) lattice energy makes every
     # star lighter.
     plain, lattice = sm.electron_gas("wd", 2.0), sm.electron_gas("wdc", 2.0, True, 6.0)
-    a_c = 0.3 * (4 * np.pi / 3) ** (1 / 3) * units.FINE_STRUCTURE_CONSTANT * 6 ** (2 / 3) / (3 * np.pi**2) ** (4 / 3)
-    assert lattice.x_surface == pytest.approx(15 * np.pi**2 * a_c, rel=1e-3)
     p, eps, rho = lattice.state(np.array([0.0]))
     assert abs(p[0]) < 1e-12 * eps[0] and rho[0] > 0 and lattice.surface_energy_density == pytest.approx(eps[0])
+    # The zero-pressure density, independently: astropy's CODATA 2018 constants in cgs, the electron
+    # pressure from Chandrasekhar's (1939) integral by QUADPACK, Salpeter's p_C = eps_C / 3 with
+    # e^2 = alpha hbar c, and the root of p_e + p_C = 0 by brentq; rho = mu_e m_u n_e (about 13.0 g/cm^3).
+    from astropy.constants import codata2018 as cc
+    from scipy.optimize import brentq
+
+    m_e, c, hbar = cc.m_e.cgs.value, cc.c.cgs.value, cc.hbar.cgs.value
+    alpha, m_u, z = cc.alpha.value, cc.u.cgs.value, 6.0
+
+    def pressure(n_e):
+        x = hbar * (3 * np.pi**2 * n_e) ** (1 / 3) / (m_e * c)
+        electrons = m_e * c**2 * (m_e * c / hbar) ** 3 / (3 * np.pi**2) * quad(
+            lambda t: t**4 / np.sqrt(1 + t * t), 0, x, epsabs=0, epsrel=1e-13)[0]
+        lattice_energy = -0.9 * (4 * np.pi / 3) ** (1 / 3) * z ** (2 / 3) * alpha * hbar * c * n_e ** (4 / 3)
+        return electrons + lattice_energy / 3
+
+    n_surface = brentq(pressure, 1e23, 1e26, xtol=1e10, rtol=1e-14)
+    assert units.density_from_geometric(rho[0]) == pytest.approx(2.0 * m_u * n_surface, rel=1e-8)
     assert plain.surface_energy_density == 0.0
     rho_c = [1e6, 1e8, 1e10]
     assert np.all(sm.solve_stars(lattice, central_density=rho_c)["mass"]

@@ -103,3 +103,16 @@ def test_the_examples_of_the_new_kinds_build(name):
     for spec in config.eos:
         spec.build()
     assert config.eos or config.ensembles
+
+
+@pytest.mark.parametrize("build, key", [
+    (lambda: sm.quark_matter("q", [57.0, 60.0]), "bag_constant"),
+    (lambda: sm.quark_matter("q", 57.0, "1/3"), "sound_speed_squared"),
+    (lambda: sm.electron_gas("w", 2.0, True, "6"), "nuclear_charge"),
+    (lambda: sm.electron_gas("w", [2.0]), "mu_e"),
+], ids=["bag-array", "cs2-string", "charge-string", "mu_e-list"])
+def test_api_factories_refuse_non_numbers_naming_the_key(build, key):
+    # the Python API, not only the config, names the argument in one line (review of issue 11)
+    with pytest.raises(sm.InputError) as info:
+        build()
+    assert info.value.key == key and "\n" not in str(info.value)

@@ -208,7 +208,9 @@ def electron_gas(name: str, mu_e: float, coulomb_correction: bool = False,
     InputError
         Naming ``mu_e``, ``coulomb_correction`` or ``nuclear_charge``.
     """
-    mu_e = units.to_unit(mu_e, units.DIMENSIONLESS, name="mu_e")
+    mu_e = registry.as_scalar(units.to_unit(mu_e, units.DIMENSIONLESS, name="mu_e"), "mu_e")
+    nuclear_charge = registry.as_scalar(units.to_unit(nuclear_charge, units.DIMENSIONLESS, name="nuclear_charge"),
+                                        "nuclear_charge")
     if not (np.isfinite(mu_e) and 1.0 <= mu_e <= 3.0):
         raise InputError(f"needs 1 <= mu_e <= 3 (nucleons per electron), got {mu_e!r}", key="mu_e")
     if not isinstance(coulomb_correction, bool | np.bool_):

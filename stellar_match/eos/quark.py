@@ -93,6 +93,8 @@ def quark_matter(name: str, bag_constant: float, sound_speed_squared: float = DE
     """
     bag_constant = units.to_unit(bag_constant, "MeV / fm3", name="bag_constant")
     sound_speed_squared = units.to_unit(sound_speed_squared, units.DIMENSIONLESS, name="sound_speed_squared")
+    bag_constant = registry.as_scalar(bag_constant, "bag_constant")
+    sound_speed_squared = registry.as_scalar(sound_speed_squared, "sound_speed_squared")
     if not (np.isfinite(bag_constant) and bag_constant > 0):
         raise InputError(f"needs a positive bag constant (MeV/fm3), got {bag_constant!r}", key="bag_constant")
     if not (np.isfinite(sound_speed_squared) and 0 < sound_speed_squared <= 1):

@@ -24,12 +24,15 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from ..errors import ConfigError, InputError
 from .base import EquationOfState
 
 __all__ = [
     "KINDS", "EOSKind", "Column", "KeyReader", "register", "kind_names", "get_kind", "parse_options",
-    "build_eos", "rebuild_eos", "member_columns", "member_options", "column_rank", "check_number", "NOT_GIVEN",
+    "build_eos", "rebuild_eos", "member_columns", "member_options", "column_rank", "as_scalar", "check_number",
+    "NOT_GIVEN",
 ]
 
 
@@ -43,6 +46,20 @@ class _NotGiven:
 
 #: Marks a key without a default (and, in an ensemble block, a key left to the member columns).
 NOT_GIVEN: Any = _NotGiven()
+
+
+def as_scalar(value: Any, key: str) -> float:
+    """``value`` as one float for a factory of the Python API, or an InputError naming ``key``.
+
+    Catches arrays, strings and booleans before a numpy comparison would
+    fail with a message that names nothing.
+    """
+    if isinstance(value, bool | np.bool_ | str | bytes) or np.ndim(value) != 0:
+        raise InputError(f"needs one number, got {value!r}", key=key)
+    try:
+        return float(value)
+    except (TypeError, ValueError):
+        raise InputError(f"needs one number, got {value!r}", key=key) from None
 
 
 def check_number(value: Any, source: str, key: str, *, positive: bool = False) -> float:

@@ -83,7 +83,7 @@ def phase_transition(name: str, base: EquationOfState, transition_pressure: floa
     if not (np.isfinite(h_t) and 0 < h_t < base.h_max):
         top = ""
         if np.isfinite(base.h_max):
-            top = f" (it reaches {units.pressure_from_geometric(base.state(np.array([base.h_max]))[0][0]):.4g})"
+            top = f" (it reaches {units.pressure_from_geometric(base.state(np.array([base.h_max]))[0][0]):.4g} dyn/cm2)"
         raise InputError(f"{p_t:.4g} dyn/cm2 lies beyond the base EOS's pressure range{top}",
                          key="transition_pressure")
     p_geo, eps_t, _ = (float(x[0]) for x in base.state(np.array([h_t])))  # the base's own p at h_t: continuity
