@@ -254,6 +254,16 @@ class StarInteriors:
         interior density jump of the EOS (``eos.interior_jumps``): the core
         of the high-density phase.  NaN for stars without such a core; None
         when the EOS has no interior jump.
+    crust_thickness, crust_mass : ndarray or None
+        R - r_cc and M - m(r_cc) (km) of an EOS with a crust
+        (``eos.crust_core_enthalpy``, the log-enthalpy h_cc of its
+        crust-core density): r_cc is where the star passes h_cc.  A star
+        whose centre lies below h_cc is crust throughout (R and M).  None
+        when the EOS has no crust.
+    crust_inertia_fraction : ndarray or None
+        Delta I_crust / I = 1 - phi(r_cc) / phi(R), phi = r^4 j d omega-bar/dr
+        (Hartle 1967, ApJ 150, 1005, eq. 43: phi / 6 is the angular momentum
+        J(r) inside r); NaN without the response equations.
     """
 
     central_enthalpy: np.ndarray
@@ -271,6 +281,10 @@ class StarInteriors:
     steps: np.ndarray | None = None
     core_radius: np.ndarray | None = None
     core_mass: np.ndarray | None = None
+    # -- the crust (issue 12)
+    crust_thickness: np.ndarray | None = None
+    crust_mass: np.ndarray | None = None
+    crust_inertia_fraction: np.ndarray | None = None
 
     def __repr__(self) -> str:
         n = int(np.size(self.mass))
@@ -659,7 +673,7 @@ def _solve(eos, central_enthalpy, control: StepControl, response: bool, record: 
     fraction = np.full(n, ENVELOPE_FRACTION)
     scale = np.ones(n)
     with np.errstate(all="ignore"):  # stars that break down are redone or flagged below
-        y, err, steps, core, *first = _integrate(eos, h_c, control, response, fraction, record)
+        y, err, steps, core, crust, *first = _integrate(eos, h_c, control, response, fraction, record)
         # recorded grids: (edges, states, column) per star, replaced whenever the star is solved again
         nodes = [(first[0][0], first[0][1], j) for j in range(n)] if record else None
 
@@ -667,9 +681,11 @@ def _solve(eos, central_enthalpy, control: StepControl, response: bool, record: 
             for factor in np.unique(scale[stars]):
                 sel = stars[scale[stars] == factor]
                 sub = eos.select(sel) if hasattr(eos, "select") else eos
-                y[:, sel], err[:, sel], steps_sel, core[:, sel], *again = _integrate(
+                y[:, sel], err[:, sel], steps_sel, core[:, sel], crust_sel, *again = _integrate(
                     sub, h_c[sel], control.scaled(factor), response, fraction[sel], record)
                 steps[sel] += steps_sel
+                if crust is not None:
+                    crust[:, sel] = crust_sel
                 if record:
                     for j, star in enumerate(sel):
                         nodes[star] = (again[0][0], again[0][1], j)
@@ -725,6 +741,13 @@ def _solve(eos, central_enthalpy, control: StepControl, response: bool, record: 
             core_r = np.sqrt(core[0])
             out.core_radius = np.where(bad, np.nan, core_r)
             out.core_mass = np.where(bad, np.nan, core[1] * core[0] * core_r)
+        if crust is not None:
+            crust_r = np.sqrt(crust[0])
+            out.crust_thickness = np.where(bad, np.nan, radius - crust_r)
+            out.crust_mass = np.where(bad, np.nan, mass - crust[1] * crust[0] * crust_r)
+            # phi = C r^5 psi, the same constant C at r_cc and R
+            fraction_cc = 1.0 - crust_r**5 * crust[5] / (radius**5 * y[5]) if response else np.nan
+            out.crust_inertia_fraction = np.where(bad, np.nan, fraction_cc)
         if response:
             compactness = mass / radius
             # energy-density jump at the surface: y drops by 4 pi R^3 eps(R-) / M
@@ -971,6 +994,11 @@ def _integrate(eos, h_c, control, response, envelope_fraction, record: bool = Fa
         (u, v) where the star crosses the first interior jump (NaN if it does
         not); a core smaller than the central-series hand-over x_0 takes
         them from the central series at x = h_c - h_t.
+    crust : ndarray, shape (3 or 6, n), or None
+        The state where each star passes the crust-core boundary
+        ``eos.crust_core_enthalpy`` (a step edge; from the central series
+        when it lies within x_0 of the centre, at the centre itself when the
+        star is all crust); None for an EOS without a crust.
     nodes : tuple of ndarray, only with ``record=True``
         (edges, states): the step edges, shape (S + 1, n), descending from
         h_c - x_0 to 0, and the state at each edge as the step ending there
@@ -1024,11 +1052,32 @@ def _integrate(eos, h_c, control, response, envelope_fraction, record: bool = Fa
         e = h_c[None, None, :] - x_t[:, None, :] * ratio[None, :, None]
         ok = (x_t[:, None, :] > x0[None, None, :]) & (e > 0) & np.isfinite(e)
         extra = np.where(ok, e, 0.0).reshape(-1, n)
+    crust_h = getattr(eos, "crust_core_enthalpy", None)
+    crust = None
+    if crust_h is not None:
+        # the crust-core boundary is a step edge of every star that passes it off the central series;
+        # the others take the series there (or, all crust, at the centre: r = m = phi = 0)
+        crust_h = np.broadcast_to(np.asarray(crust_h, dtype=float), (n,))
+        passes = crust_h < h_c - x0
+        edge = np.where(passes, crust_h, 0.0)[None, :]
+        extra = edge if extra is None else np.concatenate([extra, edge])
+        x_cc = np.clip(h_c - crust_h, 0.0, None)
+        crust = central_series(p_c, eps_c, rho_c, deps_dh, x_cc)
+        if response:
+            crust = np.concatenate([crust, response_series(p_c, eps_c, deps_dh, h_c, x_cc)])
     edges = step_grid(always, density, breaks, h_c, x0, startup_end, h_env, control.startup_growth,
                       control.enthalpy_step, extra)
     h_from, h_to = edges[:-1], edges[1:]
     steps = np.count_nonzero(h_from > h_to, axis=0)
     piece = eos.piece_index(0.5 * (h_from + h_to))
+    crust_at: dict[int, np.ndarray] = {}  # step -> stars whose step s starts at the boundary
+    if crust is not None:
+        hit = h_from == crust_h[None, :]
+        hit[1:] &= h_from[:-1] > h_from[1:]
+        hit[0] = False
+        first_hit = np.where(hit.any(axis=0), hit.argmax(axis=0), -1)
+        for s_hit in np.unique(first_hit[first_hit > 0]):
+            crust_at[int(s_hit)] = np.flatnonzero(first_hit == s_hit)
 
     h_guard = SURFACE_GUARD * h_c
     coeff_tables = eos.piece_arrays()
@@ -1068,6 +1117,8 @@ def _integrate(eos, h_c, control, response, envelope_fraction, record: bool = Fa
         idx = piece[s]
         coeff = {name: table[idx] for name, table in coeff_tables.items()}
         crossing = None
+        if s in crust_at:
+            crust[:, crust_at[s]] = y[:, crust_at[s]]
         if jumps is not None and s > 0:
             at_jump = (jump_h == h0[None, :]) & (h_from[s - 1] > h0)[None, :]
             if at_jump.any():
@@ -1102,8 +1153,8 @@ def _integrate(eos, h_c, control, response, envelope_fraction, record: bool = Fa
     rhs(0, h_guard, y, coeff)
     _accumulate(error, carry, dh_prev * e_last, k[0, :3], y[:3], scratch)
     if record:
-        return y, error, steps, core, (edges, np.stack(recorded))
-    return y, error, steps, core
+        return y, error, steps, core, crust, (edges, np.stack(recorded))
+    return y, error, steps, core, crust
 
 
 def _accumulate(error, carry, last_weight, last_stage, state, scratch) -> None:
