@@ -553,15 +553,16 @@ def profile_figure(prof: StarProfile, path: str | Path | None = None):
     colours = palette(4)
     fig = Figure(figsize=(10, 4.2), layout="constrained")
     ax1, ax2 = fig.subplots(1, 2)
-    ax1.plot(x, c["rest_mass_density"], color=colours[0], label="rest-mass density", gid="rest_mass_density")
+    (line_rho,) = ax1.plot(x, c["rest_mass_density"], color=colours[0], label="rest-mass density",
+                           gid="rest_mass_density")
     ax1.set_xlabel("r / R")
     ax1.set_ylabel(r"$\rho$ [g cm$^{-3}$]")
     ax1b = ax1.twinx()
-    ax1b.plot(x, c["pressure"], color=colours[1], ls="--", label="pressure", gid="pressure")
+    (line_p,) = ax1b.plot(x, c["pressure"], color=colours[1], ls="--", label="pressure", gid="pressure")
     ax1b.set_ylabel(r"$p$ [dyn cm$^{-2}$]")
     for ax in (ax1, ax2):
         ax.axvline(1.0, color="0.5", lw=0.8)
-    ax1.legend(handles=ax1.get_lines() + ax1b.get_lines()[:1], loc="upper right")
+    ax1.legend(handles=[line_rho, line_p], loc="upper right")
     ax2.plot(x, c["g_tt_magnitude"], color=colours[2], label=r"$e^{\nu} = -g_{tt}$", gid="g_tt_magnitude")
     ax2.plot(x, c["g_rr"], color=colours[3], ls="--", label=r"$e^{\lambda} = g_{rr}$", gid="g_rr")
     for key, label in (("photon_sphere_radius", "photon sphere"), ("isco_radius", "ISCO")):
