@@ -488,6 +488,19 @@ CASES = [
     Case("sweep_output_exists", existing_output, ("out.h5", "--force")),
     Case("sweep_output_is_a_folder", output_folder, ("out.h5", "folder")),
     Case("density_above_the_table", beyond_table, ("bad.toml", "sweep.central_density")),
+    # -- profile (issue 12): one line, exit 2, no file --------------------------------------
+    args_case("profile_mass_above_m_max", ["profile", "good.h5", "--eos", "sly", "--mass", "3.0", "-o", "p.h5"],
+              "mass", "above the maximum mass"),
+    args_case("profile_unknown_eos", ["profile", "good.h5", "--eos", "nope", "--mass", "1.4", "-o", "p.h5"],
+              "eos", "nope"),
+    args_case("profile_density_negative", ["profile", "good.h5", "--eos", "sly", "--central-density=-1e15",
+                                           "-o", "p.h5"], "central_density"),
+    args_case("profile_output_format", ["profile", "good.h5", "--eos", "sly", "--mass", "1.4", "-o", "p.txt"],
+              "p.txt"),
+    args_case("profile_two_choices", ["profile", "good.h5", "--mass", "1.4", "--central-density", "1e15",
+                                      "-o", "p.h5"], "--central-density"),
+    args_case("profile_outer_radius_below_1", ["profile", "good.h5", "--eos", "sly", "--central-density", "1e15",
+                                               "--outer-radius", "0.5", "-o", "p.h5"], "outer_radius"),
 ]
 
 
