@@ -51,7 +51,8 @@ from .sequence import EOSSequence, analyse_sequence
 from .structure import DEFAULT_STEPS, InteriorProfiles, StepControl, solve_interiors, solve_profiles
 from .sweep import run_config, solve_stars, sweep_eos
 
-_LAZY = ("plots", "exports", "scheduling", "ensemble", "likelihood", "scoring", "inference", "constraints")
+_LAZY = ("plots", "exports", "scheduling", "ensemble", "likelihood", "scoring", "inference", "constraints",
+         "profile")  # profile: the module is callable, stellar_match.profile(...) (issue 12)
 
 
 def __getattr__(name: str):

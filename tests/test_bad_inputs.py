@@ -397,6 +397,10 @@ CASES = [
     scored("likelihood_band_masses", GOOD_MASS, "--band-masses", argv=("--band-masses", "2:1:0.1")),
     # -- run files --------------------------------------------------------------------------
     corrupt("mass_missing", delete("eos/sly/mass"), "/eos/sly/mass", message="missing"),
+    corrupt("crust_fraction_above_1", replace("eos/sly/crust_inertia_fraction", np.full(5, 1.5)),
+            "/eos/sly/crust_inertia_fraction", message="outside"),
+    corrupt("crust_thickness_negative", replace("eos/sly/crust_thickness", np.full(5, -1.0)),
+            "/eos/sly/crust_thickness", message="outside", command="redshift"),
     corrupt("mass_2d", replace("eos/sly/mass", np.ones((5, 2))), "/eos/sly/mass", command="overlay"),
     corrupt("mass_too_short", replace("eos/sly/mass", np.ones(4)), "/eos/sly/mass", command="redshift"),
     corrupt("mass_is_a_group", lambda f: (f.__delitem__("eos/sly/mass"), f.create_group("eos/sly/mass")),
