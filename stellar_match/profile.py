@@ -130,9 +130,13 @@ class StarProfile:
 # --- choosing the star ---------------------------------------------------------------------------
 
 def load_source_eos(source, name: str | None):
-    """(EOS, its sequence or None, step control) of EOS ``name`` in a config or run file, or an EOS given."""
+    """(EOS, its sequence or None, step control, sweep axis or None) of EOS ``name`` in a config or run file.
+
+    ``source`` may also be an EOS object (no sequence, the default control).  A config gives its
+    ``[sweep]`` axis, along which :func:`profile` sweeps the EOS when it chooses a star by mass.
+    """
     if isinstance(source, EquationOfState):
-        return source, None, DEFAULT_STEPS
+        return source, None, DEFAULT_STEPS, None
     path = Path(source)
     if not path.is_file():
         raise InputError("not found (give a TOML config or an HDF5 run file)", source=str(path))
@@ -149,7 +153,7 @@ def load_source_eos(source, name: str | None):
             raise InputError(f"unknown EOS {name!r} (the run file has: {', '.join(names) or 'none'})", key="eos",
                              source=str(path))
         seq = run.eos[name]
-        return eos_from_sequence(seq), seq, control_of_run(run)
+        return eos_from_sequence(seq), seq, control_of_run(run), None
     from .config import load_config
 
     config = load_config(path)
@@ -160,13 +164,15 @@ def load_source_eos(source, name: str | None):
         raise InputError(f"unknown EOS {name!r} (the config has: {', '.join(names) or 'none'})", key="eos",
                          source=str(path))
     spec = config.eos[names.index(name)]
-    return spec.build(), None, config.solver.control()
+    return spec.build(), None, config.solver.control(), config.axis
 
 
-def _sequence_for(eos, control):
-    """A sweep of ``eos`` over its range (for the choice by mass when the source has none)."""
+def _sequence_for(eos, control, axis=None):
+    """A sweep of ``eos`` along ``axis`` (a config's), else over its range: for the choice by mass."""
     from .sweep import sweep_eos
 
+    if axis is not None:
+        return sweep_eos(eos, axis.quantity, axis.values, control=control)
     if eos.density_axis:
         top = units.density_from_geometric(float(eos.state(np.array([min(eos.h_max, 2.0)]))[2][0]))
         values = np.geomspace(1e14 if top > 1e15 else top * 1e-3, min(top, 1e16), 96)
@@ -340,14 +346,14 @@ def profile(source, *, eos: str | None = None, mass=None, central_density=None, 
         raise InputError(f"needs a multiple of R above 1, got {outer_radius!r}", key="outer_radius")
     if isinstance(branch, bool) or not isinstance(branch, int | np.integer) or branch < 1:
         raise InputError(f"needs a whole number >= 1, got {branch!r}", key="branch")
-    the_eos, seq, source_control = load_source_eos(source, eos)
+    the_eos, seq, source_control, axis = load_source_eos(source, eos)
     control = control or source_control
     if mass is not None:
         m = float(units.to_unit(mass, units.MASS_UNIT, name="mass"))
         if not (np.isfinite(m) and m > 0):
             raise InputError(f"needs a positive mass (Msun), got {mass!r}", key="mass")
         if seq is None:
-            seq = _sequence_for(the_eos, control)
+            seq = _sequence_for(the_eos, control, axis)
         h_c = _central_enthalpy_at_mass(the_eos, seq, m, int(branch), control)
     else:
         quantity = given[0]

@@ -132,3 +132,19 @@ def test_cli_profile_and_figure(tmp_path, capsys):
     assert main(["profile", str(cfg), "--eos", "sly", "--mass", "1.4", "-o", str(out), "--figure", str(fig)]) == 0
     text = capsys.readouterr().out
     assert "match at R" in text and out.is_file() and fig.is_file()
+
+
+def test_twin_branch_is_selectable():
+    # runs/example_hybrid.toml, EOS "twins": a third family (flagged by the turning-point rule,
+    # tests/test_phase_transition.py); at 1.4 Msun the twin is the smaller star with a core of the new phase
+    from pathlib import Path
+
+    cfg = Path(__file__).resolve().parents[1] / "runs" / "example_hybrid.toml"
+    ordinary = sm.profile(cfg, eos="twins", mass=1.4)
+    twin = sm.profile(cfg, eos="twins", mass=1.4, branch=2)
+    assert abs(twin.attributes["mass"] - 1.4) < 1e-6 and abs(ordinary.attributes["mass"] - 1.4) < 1e-5
+    assert twin.attributes["radius"] < ordinary.attributes["radius"] - 1.0
+    assert "interior high-density phase" in set(twin.columns["region"])
+    assert "interior high-density phase" not in set(ordinary.columns["region"])
+    with pytest.raises(sm.InputError, match="rising branch"):
+        sm.profile(cfg, eos="twins", mass=1.4, branch=5)
