@@ -89,7 +89,7 @@ def tiled_run_file(source: Path, out: Path, members: int) -> Path:
     import stellar_match as sm
     from stellar_match.ensemble import EnsembleSpec
     from stellar_match.runfile import RunFileWriter
-    from stellar_match.schema import MEMBER_SUMMARIES, STAR_DATASETS
+    from stellar_match.schema import MEMBER_SUMMARIES, OPTIONAL_STAR_DATASETS, STAR_DATASETS
 
     run = sm.read_run(source)
     name = next(iter(run.ensembles))
@@ -98,6 +98,7 @@ def tiled_run_file(source: Path, out: Path, members: int) -> Path:
     with h5py.File(source, "r") as f:
         g = f["ensemble"][name]
         columns = {k: g[k][()] for k in (*STAR_DATASETS, *MEMBER_SUMMARIES)}
+        columns |= {k: g[k][()] for k in OPTIONAL_STAR_DATASETS if k in g}  # e.g. the crust datasets
         axis = SimpleNamespace(quantity=g.attrs["sweep_quantity"], values=g["sweep_values"][()],
                                unit=g["sweep_values"].attrs["unit"])
     names = list(summary.members)

@@ -669,6 +669,64 @@ def _export_columns():
     return f"{max(rel(values('surface_redshift'), z), rel(values('log10_surface_gravity'), np.log10(g))):.1e}"
 
 
+# -- issue 12: one star's profile and the crust ---------------------------------------------------
+
+@row("profile, uniform density C = 0.25: e^(nu/2) along r", "Schwarzschild 1916 exact interior", "1e-9")
+def _profile_uniform():
+    # steps 1/4 of the defaults and tolerance 1e-11 (the default grid gives about 1e-8)
+    eos = sm.incompressible("u", 1e15)
+    s = np.sqrt(1 - 2 * 0.25)
+    p_c = eos.energy_density * (1 - s) / (3 * s - 1)
+    prof = sm.profile(eos, central_pressure=units.pressure_from_geometric(p_c),
+                      control=replace(DEFAULT_STEPS.scaled(0.25), tolerance=1e-11))
+    inside = prof.columns["region"] == "interior"
+    r, R = prof.columns["radius"][inside], prof.attributes["radius"]
+    M = units.mass_to_geometric(prof.attributes["mass"])
+    exact = 1.5 * np.sqrt(1 - 2 * M / R) - 0.5 * np.sqrt(1 - 2 * M * r**2 / R**3)
+    default = sm.profile(eos, central_pressure=units.pressure_from_geometric(p_c))
+    inside_d = default.columns["region"] == "interior"
+    rd = default.columns["radius"][inside_d]
+    exact_d = 1.5 * np.sqrt(1 - 2 * M / R) - 0.5 * np.sqrt(1 - 2 * M * rd**2 / R**3)
+    return (f"{rel(np.sqrt(prof.columns['g_tt_magnitude'][inside]), exact):.1e} ({inside.sum()} points); "
+            f"default steps {rel(np.sqrt(default.columns['g_tt_magnitude'][inside_d]), exact_d):.1e}")
+
+
+@row("profile, n = 1 polytrope ρ_c = 1e11 g/cm3: ρ(r)/ρ_c", "sin ξ / ξ (Lane-Emden, Chandrasekhar 1939)", "3e-4")
+def _profile_lane_emden():
+    prof = sm.profile(sm.polytrope("n1", 1e5, 2.0), central_density=1e11)
+    inside = np.char.startswith(prof.columns["region"].astype(str), "interior")
+    xi = np.pi * prof.columns["radius"][inside] / prof.attributes["radius"]
+    le = np.where(xi > 0, np.sin(xi) / np.where(xi > 0, xi, 1.0), 1.0)
+    return f"{np.max(np.abs(prof.columns['rest_mass_density'][inside] / 1e11 - le)):.1e} (absolute, of ρ_c)"
+
+
+@row("profile of SLy 1.4 Msun: M, R, M_b vs the sweep; match at R", "the same solve; Schwarzschild exterior",
+     "1e-12")
+def _profile_match():
+    eos = sly()
+    prof = sm.profile(eos, central_density=8e14)
+    cols = sm.solve_stars(eos, central_density=[8e14])
+    worst = max(rel(prof.attributes[k], cols[k][0]) for k in ("mass", "radius", "baryon_mass"))
+    a = sm.profile(eos, mass=1.4).attributes
+    jumps = max(abs(a["match_g_tt"]), abs(a["match_g_rr"]), abs(a["match_dnu_dr"]))
+    return f"{worst:.1e} (M, R, M_b); largest relative jump at R {jumps:.1e} (e^nu, e^lambda, dnu/dr)"
+
+
+@row("SLy 1.4 Msun crust: R - r_cc, M - m(r_cc), ΔI_crust/I", "solve_ivp DOP853 rtol 1e-11, r-form with Hartle "
+     "frame dragging, event at p_cc", "1e-5; 1e-4; 1e-4")
+def _crust():
+    from reference_solutions import crust_in_radius
+
+    eos = sly()
+    a = sm.profile(eos, mass=1.4).attributes
+    R, M, r_cc, m_cc, frac = crust_in_radius(eos, a["central_enthalpy"], units.density_to_geometric(
+        eos.parameters["crust_core_density"]))
+    mass_error = rel(a["crust_mass"], units.mass_from_geometric(M - m_cc))
+    return (f"{rel(a['crust_thickness'], R - r_cc):.1e}, {mass_error:.1e}, "
+            f"{rel(a['crust_inertia_fraction'], frac):.1e} (thickness {a['crust_thickness']:.3f} km, "
+            f"ΔI/I = {a['crust_inertia_fraction']:.4f})")
+
+
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--list", action="store_true", help="print the case of every row and stop")

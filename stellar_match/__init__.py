@@ -48,10 +48,11 @@ from .runfile import RunFile, read_run
 from .schema import STAR_DATASETS
 from .scoring import Scores, read_scores, score_runs, write_scores
 from .sequence import EOSSequence, analyse_sequence
-from .structure import DEFAULT_STEPS, StepControl, solve_interiors
+from .structure import DEFAULT_STEPS, InteriorProfiles, StepControl, solve_interiors, solve_profiles
 from .sweep import run_config, solve_stars, sweep_eos
 
-_LAZY = ("plots", "exports", "scheduling", "ensemble", "likelihood", "scoring", "inference", "constraints")
+_LAZY = ("plots", "exports", "scheduling", "ensemble", "likelihood", "scoring", "inference", "constraints",
+         "profile")  # profile: the module is callable, stellar_match.profile(...) (issue 12)
 
 
 def __getattr__(name: str):
@@ -102,6 +103,8 @@ __all__ = [
     "DEFAULT_STEPS",
     "StepControl",
     "solve_interiors",
+    "solve_profiles",
+    "InteriorProfiles",
     "run_config",
     "solve_stars",
     "sweep_eos",

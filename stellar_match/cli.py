@@ -301,7 +301,56 @@ def cmd_sweep(args) -> int:
 
 
 def cmd_summary(args) -> int:
-    print(summary_table(read_run(args.run)))
+    run = read_run(args.run)
+    print(summary_table(run))
+    if args.crust_inertia_above is not None:
+        print(crust_inertia_lines(run, args.crust_inertia_above))
+    return 0
+
+
+def crust_inertia_lines(run, threshold: float) -> str:
+    """Stars of every EOS whose crust_inertia_fraction is at least ``threshold`` (a fraction, 0.014 = 1.4 %)."""
+    lines = [f"stars with Delta I_crust / I >= {threshold:g} (crust_inertia_fraction):"]
+    for name, seq in run.eos.items():
+        if "crust_inertia_fraction" not in seq.columns:
+            lines.append(f"  {name}: no crust datasets")
+            continue
+        frac = np.asarray(seq["crust_inertia_fraction"], dtype=float)
+        hit = np.flatnonzero(frac >= threshold)
+        stable = np.asarray(seq.stable, dtype=bool)
+        m = np.asarray(seq["mass"], dtype=float)
+        if not hit.size:
+            lines.append(f"  {name}: none")
+            continue
+        on = hit[stable[hit]]
+        span = f"; stable ones M {m[on].min():.4f}-{m[on].max():.4f} Msun" if on.size else ""
+        lines.append(f"  {name}: {hit.size} of {frac.size} stars (indices {hit[0]}..{hit[-1]}){span}")
+    return "\n".join(lines)
+
+
+def cmd_profile(args) -> int:
+    from .exports import check_output_path
+    from .profile import profile, profile_figure, write_profile
+
+    out = check_output_path(args.out, (".h5", ".hdf5", ".ecsv"))
+    figure = check_output_path(args.figure, (".png", ".pdf", ".svg")) if args.figure else None
+    for path in (out, figure):
+        if path is not None and not path.parent.is_dir():
+            raise InputError("folder does not exist; create it first", source=str(path.parent))
+    prof = profile(args.source, eos=args.eos, mass=args.mass, central_density=args.central_density,
+                   central_pressure=args.central_pressure, outer_radius=args.outer_radius, branch=args.branch)
+    a = prof.attributes
+    print(f"{a['eos_name']}: M = {a['mass']:.6f} Msun, R = {a['radius']:.6f} km, "
+          f"rho_c = {a['central_density']:.6e} g/cm3, p_c = {a['central_pressure']:.6e} dyn/cm2")
+    print(f"match at R (relative jumps, exterior - interior): g_tt {a['match_g_tt']:.3e}, "
+          f"g_rr {a['match_g_rr']:.3e}, dnu/dr {a['match_dnu_dr']:.3e}")
+    if "crust_thickness" in a:
+        print(f"crust: thickness {a['crust_thickness']:.4f} km, mass {a['crust_mass']:.4e} Msun, "
+              f"Delta I/I {a['crust_inertia_fraction']:.4f}")
+    print(f"wrote {write_profile(prof, out)} ({len(prof.columns['radius'])} rows)")
+    if figure is not None:
+        profile_figure(prof, figure)
+        print(f"wrote {figure}")
     return 0
 
 
@@ -666,7 +715,26 @@ def build_parser() -> argparse.ArgumentParser:
                 formatter_class=argparse.RawDescriptionHelpFormatter,
                 description=f"Print a table with one row per EOS of a run file:\n\n{columns}\n\n{SUMMARY_NOTES}")
     s.add_argument("run", help="HDF5 run file")
+    s.add_argument("--crust-inertia-above", type=float, metavar="FRACTION",
+                   help="also list the stars with crust_inertia_fraction >= FRACTION (glitch studies use about "
+                        "0.014-0.016; Link, Epstein & Lattimer 1999, from memory)")
     s.set_defaults(func=cmd_summary)
+
+    s = command("profile", help="one star's profile: interior on the solver's nodes, Schwarzschild exterior, "
+                "the match at R (HDF5 or ECSV, optional figure)")
+    s.add_argument("source", metavar="SOURCE", help="TOML config or HDF5 run file holding the EOS")
+    s.add_argument("--eos", metavar="NAME", help="the EOS's name in SOURCE (may be left out if it has one)")
+    g = s.add_mutually_exclusive_group(required=True)
+    g.add_argument("--mass", type=float, metavar="M", help="gravitational mass [Msun] (stable branch, see --branch)")
+    g.add_argument("--central-density", type=float, metavar="RHO", help="central rest-mass density [g/cm3]")
+    g.add_argument("--central-pressure", type=float, metavar="P", help="central pressure [dyn/cm2]")
+    s.add_argument("-o", "--out", required=True, metavar="OUT", help="profile to write (.h5 or .ecsv)")
+    s.add_argument("--figure", metavar="FIG", help="also a figure (.png, .pdf or .svg)")
+    s.add_argument("--outer-radius", type=float, default=10.0, metavar="K",
+                   help="the exterior reaches K R (default 10)")
+    s.add_argument("--branch", type=int, default=1, metavar="N",
+                   help="with --mass: 1 the stable branch (default), 2, 3, ... later rising (twin) branches")
+    s.set_defaults(func=cmd_profile)
 
     s = command("demo", help="run the bundled demo (three invented candidate EOS)")
     s.add_argument("--out-dir", default="runs", help="folder for the demo outputs (default: ./runs)")

@@ -87,7 +87,11 @@ class EnsembleSpec:
     @property
     def extra_datasets(self) -> tuple[str, ...]:
         """Per-star datasets of ``schema.OPTIONAL_STAR_DATASETS`` its kind writes (e.g. core_radius)."""
-        return ENSEMBLE_KINDS[self.kind].extra_datasets
+        extra = ENSEMBLE_KINDS[self.kind].extra_datasets
+        base = self.fixed.get("base")
+        if isinstance(base, tuple) and base and base[0] in registry.KINDS:  # a phase transition's base: its crust
+            extra = extra + tuple(k for k in registry.get_kind(base[0]).extra_datasets if k not in extra)
+        return extra
 
     def member_options(self, i: int) -> dict:
         """The options of member ``i``, as an ``[[eos]]`` block of the kind would give them."""
@@ -246,7 +250,7 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
 
     values = np.asarray(values, dtype=float)
     n, n_stars = stop - start, values.size
-    star_names = [k for k in STAR_DATASETS if k != "stable"] + list(ENSEMBLE_KINDS[spec.kind].extra_datasets)
+    star_names = [k for k in STAR_DATASETS if k != "stable"] + list(spec.extra_datasets)
     out: dict[str, np.ndarray] = {k: np.full((n, n_stars), np.nan) for k in star_names}
     out["stable"] = np.zeros((n, n_stars), dtype=bool)
     out["star_status"] = np.full((n, n_stars), NOT_SOLVED, dtype=np.int8)
@@ -280,7 +284,8 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
     for k, row in enumerate(rows):
         sl = slice(k * n_stars, (k + 1) * n_stars)
         for name, v in cols.items():
-            out[name][row] = v[sl]
+            if name in out:  # a crust the kind does not declare (a table base): not stored
+                out[name][row] = v[sl]
         if not np.any(cols["star_status"][sl] == 0):
             out["status"][row] = 6
             analyses.append(None)

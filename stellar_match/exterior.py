@@ -195,7 +195,7 @@ def star_columns(interiors) -> dict[str, np.ndarray]:
         "binding_energy": units.mass_from_geometric(interiors.baryon_mass - interiors.mass),
         "error_estimate": np.asarray(interiors.error_estimate, dtype=float),
         "star_status": np.asarray(interiors.status, dtype=np.int8),
-    } | _core_columns(interiors)
+    } | _core_columns(interiors) | _crust_columns(interiors)
 
 
 def _core_columns(interiors) -> dict[str, np.ndarray]:
@@ -204,6 +204,15 @@ def _core_columns(interiors) -> dict[str, np.ndarray]:
         return {}
     return {"core_radius": np.asarray(interiors.core_radius, dtype=float),
             "core_mass": units.mass_from_geometric(np.asarray(interiors.core_mass, dtype=float))}
+
+
+def _crust_columns(interiors) -> dict[str, np.ndarray]:
+    """``crust_thickness`` (km), ``crust_mass`` (Msun), ``crust_inertia_fraction`` of an EOS with a crust."""
+    if getattr(interiors, "crust_thickness", None) is None:
+        return {}
+    return {"crust_thickness": np.asarray(interiors.crust_thickness, dtype=float),
+            "crust_mass": units.mass_from_geometric(np.asarray(interiors.crust_mass, dtype=float)),
+            "crust_inertia_fraction": np.asarray(interiors.crust_inertia_fraction, dtype=float)}
 
 
 # --- radiation radius, redshift velocity and the inverse mapping ------------------

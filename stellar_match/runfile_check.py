@@ -167,6 +167,21 @@ def _group(parent, name: str, where: str) -> h5py.Group:
     return obj
 
 
+#: Value ranges of the crust datasets (issue 12); NaN is always allowed (a star without a result).
+_CRUST_RANGES = {"crust_thickness": (0.0, np.inf), "crust_mass": (0.0, np.inf), "crust_inertia_fraction": (0.0, 1.0)}
+
+
+def _crust_range(d: h5py.Dataset, name: str, where: str) -> None:
+    """A crust dataset must hold NaN or values in its range (a thickness or mass below 0, a fraction above 1)."""
+    if name not in _CRUST_RANGES:
+        return
+    lo, hi = _CRUST_RANGES[name]
+    values = np.asarray(d[()], dtype=float)
+    bad = np.isfinite(values) & ~((values >= lo - 1e-12) & (values <= hi + 1e-12)) | np.isinf(values)
+    if bad.any():
+        raise _Problem(where, f"holds {values[bad][0]!r} at star {int(np.flatnonzero(bad)[0])}, outside [{lo}, {hi}]")
+
+
 def _dataset(g: h5py.Group, name: str, where: str, *, kind: str, ndim: int, unit: str | None,
              shape: tuple[int, ...] | None = None, version: int = FORMAT_VERSION) -> h5py.Dataset:
     """The dataset ``g[name]``, checked for presence, rank, dtype kind, shape and unit.
@@ -282,8 +297,9 @@ def _check_eos_group(g, where: str, version: int) -> None:
                 if name != "star":
                     raise _Problem(sub, f"a {name!r} dimension scale belongs to a subgroup")
             elif name in OPTIONAL_STAR_DATASETS:
-                _dataset(g, name, sub, kind="f", ndim=1, unit=OPTIONAL_STAR_DATASETS[name][0], shape=shape,
-                         version=version)
+                d = _dataset(g, name, sub, kind="f", ndim=1, unit=OPTIONAL_STAR_DATASETS[name][0], shape=shape,
+                             version=version)
+                _crust_range(d, name, sub)
             elif name not in STAR_DATASETS:  # read as a column too: it must line up with the stars
                 _dataset(g, name, sub, kind="fiub", ndim=1, unit=None, shape=shape)
         elif name == "targets":

@@ -35,7 +35,7 @@ __all__ = [
     "BINARY_DATASETS", "SUMMARY_ATTRIBUTES", "NOT_SOLVED", "MEMBER_SUMMARIES", "MEMBER_STATUS", "dataset_dtype",
     "DATASET_SINCE_VERSION", "MAX_NAME_LENGTH", "group_name_problem", "DIMENSIONS", "LEGACY_UNITS",
     "SWEEP_UNITS", "accepted_units", "DIMENSIONS_SINCE_VERSION", "MEMBER_PARAMETER_UNITS", "PRIOR_WEIGHT",
-    "OPTIONAL_STAR_DATASETS",
+    "OPTIONAL_STAR_DATASETS", "CORE_DATASETS", "CRUST_DATASETS", "optional_star_datasets",
 ]
 
 FORMAT = "stellar_match.run"
@@ -63,12 +63,33 @@ STAR_DATASETS: dict[str, tuple[str, str]] = {
     "stable": ("", "turning-point stability (dM/d rho_c > 0, up to the first maximum)"),
 }
 #: Per-star datasets present only in groups whose EOS has a first-order phase transition (kind
-#: ``phase_transition``), in every format version: name -> (unit, meaning).  NaN for stars without a core.
+#: ``phase_transition``: the core ones, NaN for stars without a core) or a crust (the crust ones; see
+#: :func:`optional_star_datasets`), in every format version: name -> (unit, meaning).
 #: Readers that do not know them still accept the files (an extra 1-D column of the stars' length).
 OPTIONAL_STAR_DATASETS: dict[str, tuple[str, str]] = {
     "core_radius": ("km", "areal radius of the core of the high-density phase (NaN: no core)"),
     "core_mass": ("solMass", "gravitational mass m(r) inside the core of the high-density phase (NaN: no core)"),
+    # -- the crust (issue 12, section 2): groups whose EOS has a crust (the SLy crust fit of the
+    # piecewise_polytrope, spectral and sound_speed_nodes kinds, a table with crust_core_density);
+    # r_cc is where the rest-mass density equals the EOS's crust_core_density.
+    "crust_thickness": ("km", "R - r_cc, the radial extent of the crust above the crust-core boundary"),
+    "crust_mass": ("solMass", "M - m(r_cc), the gravitational mass of the crust"),
+    "crust_inertia_fraction": ("", "Delta I_crust / I = 1 - J(r_cc)/J(R), the crust's share of the slow-rotation "
+                                   "moment of inertia (Hartle 1967 frame dragging)"),
 }
+#: The optional datasets of an EOS with an interior density jump (``eos.interior_jumps``) ...
+CORE_DATASETS = ("core_radius", "core_mass")
+#: ... and those of an EOS with a crust (``eos.crust_core_enthalpy``).
+CRUST_DATASETS = ("crust_thickness", "crust_mass", "crust_inertia_fraction")
+
+
+def optional_star_datasets(eos) -> tuple[str, ...]:
+    """Names of :data:`OPTIONAL_STAR_DATASETS` that the sweeps of ``eos`` write (core, then crust)."""
+    core = CORE_DATASETS if getattr(eos, "interior_jumps", None) is not None else ()
+    crust = CRUST_DATASETS if getattr(eos, "crust_core_enthalpy", None) is not None else ()
+    return core + crust
+
+
 #: Per-star status codes (dataset ``star_status``); every non-zero code comes with NaN physics columns.
 STAR_STATUS: dict[int, str] = {
     0: "ok: error estimate within tolerance",

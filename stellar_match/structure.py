@@ -49,6 +49,8 @@ __all__ = [
     "RungeKuttaTableau",
     "DORMAND_PRINCE_5",
     "StarInteriors",
+    "InteriorProfiles",
+    "solve_profiles",
     "central_series",
     "solve_interiors",
     "StepControl",
@@ -252,6 +254,16 @@ class StarInteriors:
         interior density jump of the EOS (``eos.interior_jumps``): the core
         of the high-density phase.  NaN for stars without such a core; None
         when the EOS has no interior jump.
+    crust_thickness, crust_mass : ndarray or None
+        R - r_cc and M - m(r_cc) (km) of an EOS with a crust
+        (``eos.crust_core_enthalpy``, the log-enthalpy h_cc of its
+        crust-core density): r_cc is where the star passes h_cc.  A star
+        whose centre lies below h_cc is crust throughout (R and M).  None
+        when the EOS has no crust.
+    crust_inertia_fraction : ndarray or None
+        Delta I_crust / I = 1 - phi(r_cc) / phi(R), phi = r^4 j d omega-bar/dr
+        (Hartle 1967, ApJ 150, 1005, eq. 43: phi / 6 is the angular momentum
+        J(r) inside r); NaN without the response equations.
     """
 
     central_enthalpy: np.ndarray
@@ -269,6 +281,10 @@ class StarInteriors:
     steps: np.ndarray | None = None
     core_radius: np.ndarray | None = None
     core_mass: np.ndarray | None = None
+    # -- the crust (issue 12)
+    crust_thickness: np.ndarray | None = None
+    crust_mass: np.ndarray | None = None
+    crust_inertia_fraction: np.ndarray | None = None
 
     def __repr__(self) -> str:
         n = int(np.size(self.mass))
@@ -637,6 +653,17 @@ def solve_interiors(
     fifth-order one (tests/test_error_control.py measures by how much).
     Every decision depends only on the star itself, never on its batch.
     """
+    return _solve(eos, central_enthalpy, control, response, record=False)[0]
+
+
+def _solve(eos, central_enthalpy, control: StepControl, response: bool, record: bool):
+    """The body of :func:`solve_interiors`; with ``record`` also each star's accepted grid and node states.
+
+    Returns (StarInteriors, nodes) where ``nodes`` is None without ``record``,
+    else a list with one (edges, states) pair per star: its step edges,
+    shape (S + 1,), and states, shape (S + 1, components), from the last
+    grid it was solved on (the one whose surface values are reported).
+    """
     h_c = np.atleast_1d(np.asarray(central_enthalpy, dtype=float))
     if np.any(~np.isfinite(h_c) | (h_c <= 0)) or np.any(h_c > eos.h_max * (1 + 1e-12)):
         raise ValueError("central enthalpies must lie in (0, eos.h_max]")
@@ -646,15 +673,22 @@ def solve_interiors(
     fraction = np.full(n, ENVELOPE_FRACTION)
     scale = np.ones(n)
     with np.errstate(all="ignore"):  # stars that break down are redone or flagged below
-        y, err, steps, core = _integrate(eos, h_c, control, response, fraction)
+        y, err, steps, core, crust, *first = _integrate(eos, h_c, control, response, fraction, record)
+        # recorded grids: (edges, states, column) per star, replaced whenever the star is solved again
+        nodes = [(first[0][0], first[0][1], j) for j in range(n)] if record else None
 
         def redo(stars):
             for factor in np.unique(scale[stars]):
                 sel = stars[scale[stars] == factor]
                 sub = eos.select(sel) if hasattr(eos, "select") else eos
-                y[:, sel], err[:, sel], steps_sel, core[:, sel] = _integrate(sub, h_c[sel], control.scaled(factor),
-                                                                             response, fraction[sel])
+                y[:, sel], err[:, sel], steps_sel, core[:, sel], crust_sel, *again = _integrate(
+                    sub, h_c[sel], control.scaled(factor), response, fraction[sel], record)
                 steps[sel] += steps_sel
+                if crust is not None:
+                    crust[:, sel] = crust_sel
+                if record:
+                    for j, star in enumerate(sel):
+                        nodes[star] = (again[0][0], again[0][1], j)
 
         puffed = np.flatnonzero(~(y[1] * y[0] >= LOW_COMPACTNESS))  # m/r = v u; also NaN
         if puffed.size:
@@ -707,6 +741,13 @@ def solve_interiors(
             core_r = np.sqrt(core[0])
             out.core_radius = np.where(bad, np.nan, core_r)
             out.core_mass = np.where(bad, np.nan, core[1] * core[0] * core_r)
+        if crust is not None:
+            crust_r = np.sqrt(crust[0])
+            out.crust_thickness = np.where(bad, np.nan, radius - crust_r)
+            out.crust_mass = np.where(bad, np.nan, mass - crust[1] * crust[0] * crust_r)
+            # phi = C r^5 psi, the same constant C at r_cc and R
+            fraction_cc = 1.0 - crust_r**5 * crust[5] / (radius**5 * y[5]) if response else np.nan
+            out.crust_inertia_fraction = np.where(bad, np.nan, fraction_cc)
         if response:
             compactness = mass / radius
             # energy-density jump at the surface: y drops by 4 pi R^3 eps(R-) / M
@@ -720,7 +761,178 @@ def solve_interiors(
             omega_r, psi_r = y[4], y[5]
             J = radius**5 * psi_r / np.sqrt(1.0 - 2.0 * compactness) / 6.0
             out.moment_of_inertia = J / (omega_r + 2.0 * J / r3)
-    return out
+    if record:
+        nodes = [(edges[:, j], states[:, :, j]) for edges, states, j in nodes]
+    return out, nodes
+
+
+@dataclass
+class InteriorProfiles:
+    """The solver's own node states of a batch of stars, centre -> surface (geometric units).
+
+    Every 2-D array has shape (stars, nodes): row j holds star j's
+    ``n_nodes[j]`` nodes, NaN past them.  Node 0 is the centre itself
+    (r = m = m_b = 0, the central EOS values; with ``centre=False`` it is
+    left out), node 1 the hand-over of the central series at
+    h = h_c - x_0, then one node per step edge of the grid the star was
+    accepted on (after any re-solve of the error control), ending with the
+    surface h = 0, whose r, m, m_b are bit-identical to
+    :func:`solve_interiors` for the same inputs.  Zero-length steps are
+    dropped, so h decreases strictly along a row.
+
+    The metric follows from h alone in this form: with the interior lapse
+    e^nu, g_tt = -e^nu, hydrostatic equilibrium d nu = -2 dh and the match
+    e^nu(R) = 1 - 2M/R give nu(r) = ln(1 - 2M/R) - 2 h(r) (Lindblom 1992,
+    ApJ 398, 569); e^lambda = g_rr = (1 - 2m/r)^-1.
+
+    Attributes
+    ----------
+    central_enthalpy : ndarray, shape (n,)
+        h_c.
+    n_nodes : ndarray of int, shape (n,)
+        Nodes of each star (0 for a star with a non-zero ``status``, whose row is NaN).
+    status : ndarray of int8, shape (n,)
+        The star's quality code, as in :class:`StarInteriors`.
+    enthalpy : ndarray
+        Log-enthalpy h at each node (h_c at the centre, 0 at the surface).
+    radius : ndarray
+        Areal radius r (km).
+    mass, baryon_mass : ndarray
+        Enclosed gravitational mass m(r) and baryon mass m_b(r) (km).
+    pressure, energy_density, rest_mass_density : ndarray
+        p, eps, rho from the EOS at the node's h (km^-2); at a node on an
+        interior density jump, the values of its outer (low-density) side.
+    g_tt_magnitude, g_rr : ndarray
+        e^nu = (1 - 2M/R) e^(-2h) and e^lambda = 1 / (1 - 2m/r).
+    frame_dragging, frame_dragging_flux : ndarray or None
+        The solver's unnormalised Hartle (1967) variables omega-bar (1 at
+        the centre) and psi, with phi = r^4 j d omega-bar/dr = C r^5 psi,
+        C = (1 - 2M/R)^(-1/2) (see :func:`response_rhs`); None unless
+        solved with ``response=True``.
+    frame_dragging_ratio : ndarray or None
+        omega / Omega = 1 - omega-bar / Omega, the angular velocity of the
+        local inertial frames (Hartle 1967) over the star's: Omega =
+        omega-bar(R) + 2 J / R^3, J = C R^5 psi(R) / 6, so that it joins the
+        exterior's 2 J / (Omega r^3) at R.
+    """
+
+    central_enthalpy: np.ndarray
+    n_nodes: np.ndarray
+    status: np.ndarray
+    enthalpy: np.ndarray
+    radius: np.ndarray
+    mass: np.ndarray
+    baryon_mass: np.ndarray
+    pressure: np.ndarray
+    energy_density: np.ndarray
+    rest_mass_density: np.ndarray
+    g_tt_magnitude: np.ndarray
+    g_rr: np.ndarray
+    frame_dragging: np.ndarray | None = None
+    frame_dragging_flux: np.ndarray | None = None
+    frame_dragging_ratio: np.ndarray | None = None
+
+    def __repr__(self) -> str:
+        n = int(np.size(self.n_nodes))
+        return (f"InteriorProfiles({n} stars, {int(np.max(self.n_nodes, initial=0))} nodes at most"
+                f"{', with frame dragging' if self.frame_dragging is not None else ''})")
+
+    def star(self, j: int) -> dict[str, np.ndarray]:
+        """Star ``j``'s profile as 1-D arrays of its own nodes (no padding)."""
+        k = int(self.n_nodes[j])
+        out = {}
+        for f in fields(self):
+            value = getattr(self, f.name)
+            if isinstance(value, np.ndarray) and value.ndim == 2:
+                out[f.name] = value[j, :k]
+        return out
+
+
+def solve_profiles(
+    eos: EquationOfState,
+    central_enthalpy,
+    *,
+    control: StepControl = DEFAULT_STEPS,
+    response: bool = False,
+    centre: bool = True,
+) -> tuple[StarInteriors, InteriorProfiles]:
+    """Solve a batch of stars as :func:`solve_interiors` does and return their node states too.
+
+    The states are recorded along the very integration whose surface values
+    are returned (same grids, same steps, same error control), so the
+    ``StarInteriors`` equals ``solve_interiors(eos, central_enthalpy,
+    control=control, response=response)`` bit for bit, and a star re-solved
+    by the error control reports the nodes of the grid that was accepted.
+
+    Parameters
+    ----------
+    eos : EquationOfState
+        The equation of state (or a bound ensemble stack).
+    central_enthalpy : array_like, shape (n,)
+        Central log-enthalpies, each in (0, ``eos.h_max``].
+    control : StepControl, optional
+        Step placement, scheme, tolerance and step budget.
+    response : bool, optional
+        Also integrate the tidal and frame-dragging equations (gives the
+        frame-dragging columns of the profile, and k2, Lambda, I).
+    centre : bool, optional
+        Start each profile with the centre itself (r = 0) as node 0.
+
+    Returns
+    -------
+    (StarInteriors, InteriorProfiles)
+    """
+    out, nodes = _solve(eos, central_enthalpy, control, response, record=True)
+    h_c = out.central_enthalpy
+    n = h_c.size
+    kept = []
+    for edges, states in nodes:
+        step_end = np.concatenate([[True], edges[:-1] > edges[1:]])  # drop zero-length steps
+        kept.append((edges[step_end], states[step_end]))
+    first = 1 if centre else 0
+    ok = out.status == 0
+    counts = np.array([e.size + first if good else 0 for (e, _), good in zip(kept, ok, strict=True)], dtype=int)
+    width = max(int(counts.max(initial=0)), 1)  # one NaN column when no star has nodes
+    comps = 6 if response else 3
+    h = np.full((width, n), np.nan)
+    y = np.full((width, comps, n), np.nan)
+    for j, (edges, states) in enumerate(kept):
+        if not ok[j]:
+            continue
+        h[first:counts[j], j] = edges
+        y[first:counts[j], :, j] = states
+    p_c, eps_c, rho_c = out.central_pressure, out.central_energy_density, out.central_density
+    with np.errstate(all="ignore"):
+        if centre:
+            h[0, ok] = h_c[ok]
+            y[0, :3, ok] = np.stack([np.zeros(n), FOUR_PI * eps_c / 3.0, FOUR_PI * rho_c / 3.0])[:, ok].T
+            if response:
+                y[0, 3:, ok] = response_series(p_c, eps_c, eos.energy_density_slope(h_c), h_c, np.zeros(n))[:, ok].T
+        p, eps, rho = eos.state(np.where(np.isfinite(h), h, 0.0))
+        pad = ~np.isfinite(h)
+        p, eps, rho = (np.where(pad, np.nan, a) for a in (p, eps, rho))
+        if centre:
+            p[0], eps[0], rho[0] = (np.where(ok, a, np.nan) for a in (p_c, eps_c, rho_c))
+        u, v, w = y[:, 0], y[:, 1], y[:, 2]
+        radius = np.sqrt(u)
+        r3 = u * radius  # the expressions of solve_interiors: the surface node is bit-identical
+        lapse_surface = 1.0 - 2.0 * out.mass / out.radius
+        profiles = InteriorProfiles(
+            central_enthalpy=h_c, n_nodes=counts, status=out.status, enthalpy=h.T, radius=radius.T,
+            mass=(v * r3).T, baryon_mass=(w * r3).T, pressure=p.T, energy_density=eps.T, rest_mass_density=rho.T,
+            g_tt_magnitude=(lapse_surface[None, :] * np.exp(-2.0 * h)).T, g_rr=(1.0 / (1.0 - 2.0 * u * v)).T,
+        )
+        if response:
+            omega, psi = y[:, 4], y[:, 5]
+            last = np.maximum(counts - 1, 0)
+            cols = np.arange(n)
+            radius_s, omega_s, psi_s = radius[last, cols], omega[last, cols], psi[last, cols]
+            J = radius_s**5 * psi_s / np.sqrt(lapse_surface) / 6.0
+            spin = omega_s + 2.0 * J / radius_s**3
+            profiles.frame_dragging = omega.T
+            profiles.frame_dragging_flux = psi.T
+            profiles.frame_dragging_ratio = (1.0 - omega / spin[None, :]).T
+    return out, profiles
 
 
 def _jump_ratios(scale: float) -> np.ndarray:
@@ -749,8 +961,7 @@ def _relative_error(err: np.ndarray) -> np.ndarray:
     return np.maximum(0.5 * eu, np.maximum(ev, ew) + 1.5 * eu)
 
 
-def _integrate(eos, h_c, control, response, envelope_fraction
-               ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def _integrate(eos, h_c, control, response, envelope_fraction, record: bool = False):
     """Integrate every star from its centre to h = 0.
 
     Interior energy-density jumps (``eos.interior_jumps``, each a step edge
@@ -783,6 +994,16 @@ def _integrate(eos, h_c, control, response, envelope_fraction
         (u, v) where the star crosses the first interior jump (NaN if it does
         not); a core smaller than the central-series hand-over x_0 takes
         them from the central series at x = h_c - h_t.
+    crust : ndarray, shape (3 or 6, n), or None
+        The state where each star passes the crust-core boundary
+        ``eos.crust_core_enthalpy`` (a step edge; from the central series
+        when it lies within x_0 of the centre, at the centre itself when the
+        star is all crust); None for an EOS without a crust.
+    nodes : tuple of ndarray, only with ``record=True``
+        (edges, states): the step edges, shape (S + 1, n), descending from
+        h_c - x_0 to 0, and the state at each edge as the step ending there
+        left it, shape (S + 1, 3 or 6, n) (at an interior jump: its inner
+        side, before y jumps).  Zero-length steps repeat their edge.
     """
     p_c, eps_c, rho_c = eos.state(h_c)
     x0 = control.start_offset * h_c
@@ -831,11 +1052,32 @@ def _integrate(eos, h_c, control, response, envelope_fraction
         e = h_c[None, None, :] - x_t[:, None, :] * ratio[None, :, None]
         ok = (x_t[:, None, :] > x0[None, None, :]) & (e > 0) & np.isfinite(e)
         extra = np.where(ok, e, 0.0).reshape(-1, n)
+    crust_h = getattr(eos, "crust_core_enthalpy", None)
+    crust = None
+    if crust_h is not None:
+        # the crust-core boundary is a step edge of every star that passes it off the central series;
+        # the others take the series there (or, all crust, at the centre: r = m = phi = 0)
+        crust_h = np.broadcast_to(np.asarray(crust_h, dtype=float), (n,))
+        passes = crust_h < h_c - x0
+        edge = np.where(passes, crust_h, 0.0)[None, :]
+        extra = edge if extra is None else np.concatenate([extra, edge])
+        x_cc = np.clip(h_c - crust_h, 0.0, None)
+        crust = central_series(p_c, eps_c, rho_c, deps_dh, x_cc)
+        if response:
+            crust = np.concatenate([crust, response_series(p_c, eps_c, deps_dh, h_c, x_cc)])
     edges = step_grid(always, density, breaks, h_c, x0, startup_end, h_env, control.startup_growth,
                       control.enthalpy_step, extra)
     h_from, h_to = edges[:-1], edges[1:]
     steps = np.count_nonzero(h_from > h_to, axis=0)
     piece = eos.piece_index(0.5 * (h_from + h_to))
+    crust_at: dict[int, np.ndarray] = {}  # step -> stars whose step s starts at the boundary
+    if crust is not None:
+        hit = h_from == crust_h[None, :]
+        hit[1:] &= h_from[:-1] > h_from[1:]
+        hit[0] = False
+        first_hit = np.where(hit.any(axis=0), hit.argmax(axis=0), -1)
+        for s_hit in np.unique(first_hit[first_hit > 0]):
+            crust_at[int(s_hit)] = np.flatnonzero(first_hit == s_hit)
 
     h_guard = SURFACE_GUARD * h_c
     coeff_tables = eos.piece_arrays()
@@ -858,6 +1100,8 @@ def _integrate(eos, h_c, control, response, envelope_fraction
     carry_flat, n3 = carry.reshape(-1), 3 * n
     scratch = np.empty((3, n))
     dh_prev = np.zeros(n)
+    # profiles (solve_profiles): the state at every edge, recorded along the way (never re-solved)
+    recorded = [y.copy()] if record else None
 
     def rhs(i, hi, yi, coeff):
         em1 = np.expm1(hi)
@@ -873,6 +1117,8 @@ def _integrate(eos, h_c, control, response, envelope_fraction
         idx = piece[s]
         coeff = {name: table[idx] for name, table in coeff_tables.items()}
         crossing = None
+        if s in crust_at:
+            crust[:, crust_at[s]] = y[:, crust_at[s]]
         if jumps is not None and s > 0:
             at_jump = (jump_h == h0[None, :]) & (h_from[s - 1] > h0)[None, :]
             if at_jump.any():
@@ -900,11 +1146,15 @@ def _integrate(eos, h_c, control, response, envelope_fraction
         carry *= dh
         dh_prev = dh
         y = y + dh * (b @ flat).reshape(shape)
+        if record:
+            recorded.append(y.copy())  # copies: a jump changes y in place
     # the seventh stage of the last step: the derivative at the surface
     coeff = {name: table[piece[-1]] for name, table in coeff_tables.items()}
     rhs(0, h_guard, y, coeff)
     _accumulate(error, carry, dh_prev * e_last, k[0, :3], y[:3], scratch)
-    return y, error, steps, core
+    if record:
+        return y, error, steps, core, crust, (edges, np.stack(recorded))
+    return y, error, steps, core, crust
 
 
 def _accumulate(error, carry, last_weight, last_stage, state, scratch) -> None:

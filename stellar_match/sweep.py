@@ -23,7 +23,7 @@ from .eos import EquationOfState, central_enthalpy
 from .errors import ConfigError, InputError, RunFileError, StorageError
 from .exterior import star_columns
 from .runfile import RunFileWriter
-from .schema import BINARY_DATASETS, OPTIONAL_STAR_DATASETS, STAR_DATASETS, TARGET_DATASETS
+from .schema import BINARY_DATASETS, OPTIONAL_STAR_DATASETS, STAR_DATASETS, TARGET_DATASETS, optional_star_datasets
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 
@@ -171,7 +171,7 @@ def write_sequence(eos: EquationOfState, h_all: np.ndarray, chunks, sink, *, con
     ``chunks`` yields the per-star columns in sweep order; only four columns
     of the whole sequence are kept in memory for the analysis.
     """
-    columns = dict(STAR_DATASETS) | (OPTIONAL_STAR_DATASETS if eos.interior_jumps is not None else {})
+    columns = dict(STAR_DATASETS) | {k: OPTIONAL_STAR_DATASETS[k] for k in optional_star_datasets(eos)}
     sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, columns)
     kept = {k: np.empty(h_all.size) for k in _KEPT}
     start = 0
@@ -544,8 +544,7 @@ def stars_at_masses(
     x, m = _stable_branch(seq, axis)
     targets = np.atleast_1d(np.asarray(units.to_unit(masses, units.MASS_UNIT, name="masses"), dtype=float))
     names = [k for k in STAR_DATASETS if k != "stable"]
-    if eos.interior_jumps is not None:
-        names += list(OPTIONAL_STAR_DATASETS)
+    names += list(optional_star_datasets(eos))
     out = {k: np.full(targets.size, np.nan) for k in names}
     if x.size < 2:
         return out

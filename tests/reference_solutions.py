@@ -259,3 +259,46 @@ def assert_star_matches_references(eos, h_c: float, *, response: bool = True, k2
         assert star.love_number_k2[0] == pytest.approx(k2_ref, rel=response_rtol)
     assert star.tidal_deformability[0] == pytest.approx(lam, rel=response_rtol)
     assert star.moment_of_inertia[0] == pytest.approx(inertia, rel=response_rtol)
+
+
+def crust_in_radius(eos, h_c: float, crust_core_density_geom: float, rtol: float = 1e-11):
+    """(R, M, r_cc, m_cc, Delta I_crust / I) in km, integrating in r with events at p_cc and p = 0.
+
+    State (p, m, nu, omega, varpi), varpi = r^4 j omega' (Hartle 1967, ApJ 150, 1005, eq. 43) as in
+    :func:`tidal_and_inertia_in_radius`; J(r) = varpi / 6 up to the constant of j, so
+    Delta I_crust / I = 1 - varpi(r_cc) / varpi(R).  p_cc is the EOS's pressure at the crust-core
+    rest-mass density.
+    """
+    p_c, e_c, _ = _state(eos, h_c)
+    h_cc = float(eos.enthalpy_of_density(np.array([crust_core_density_geom]))[0])
+    p_cc, _, _ = _state(eos, h_cc)
+
+    def rhs(r, s):
+        p, m, nu, om, vp = s
+        pp = max(p, 0.0)
+        _, e, _ = _state(eos, float(eos.enthalpy_of_pressure(np.array([pp]))[0]))
+        elam = 1 / (1 - 2 * m / r)
+        dnu = 2 * (m + 4 * np.pi * r**3 * pp) / (r * (r - 2 * m))
+        j = np.exp(-nu / 2) * np.sqrt(1 - 2 * m / r)
+        return [-(e + pp) * dnu / 2, 4 * np.pi * r * r * e, dnu, vp / (r**4 * j),
+                16 * np.pi * r**4 * (e + pp) * elam * j * om]
+
+    def boundary(r, s):
+        return s[0] - p_cc
+
+    def surface(r, s):
+        return s[0]
+
+    surface.terminal = True
+    surface.direction = -1
+    boundary.direction = -1
+    r0 = 1e-5
+    s0 = [p_c - 2 * np.pi / 3 * (e_c + p_c) * (e_c + 3 * p_c) * r0**2, 4 * np.pi / 3 * e_c * r0**3, 0.0, 1.0,
+          16 * np.pi / 5 * (e_c + p_c) * r0**5]
+    sol = solve_ivp(rhs, (r0, 1e4), s0, method="DOP853", rtol=rtol,
+                    atol=[p_c * 1e-28, 1e-30, 1e-30, 1e-30, 1e-40], events=[boundary, surface])
+    r_cc = sol.t_events[0][0]
+    _, m_cc, _, _, vp_cc = sol.y_events[0][0]
+    R = sol.t_events[1][0]
+    _, M, _, _, vp_R = sol.y_events[1][0]
+    return float(R), float(M), float(r_cc), float(m_cc), float(1.0 - vp_cc / vp_R)

@@ -397,6 +397,10 @@ CASES = [
     scored("likelihood_band_masses", GOOD_MASS, "--band-masses", argv=("--band-masses", "2:1:0.1")),
     # -- run files --------------------------------------------------------------------------
     corrupt("mass_missing", delete("eos/sly/mass"), "/eos/sly/mass", message="missing"),
+    corrupt("crust_fraction_above_1", replace("eos/sly/crust_inertia_fraction", np.full(5, 1.5)),
+            "/eos/sly/crust_inertia_fraction", message="outside"),
+    corrupt("crust_thickness_negative", replace("eos/sly/crust_thickness", np.full(5, -1.0)),
+            "/eos/sly/crust_thickness", message="outside", command="redshift"),
     corrupt("mass_2d", replace("eos/sly/mass", np.ones((5, 2))), "/eos/sly/mass", command="overlay"),
     corrupt("mass_too_short", replace("eos/sly/mass", np.ones(4)), "/eos/sly/mass", command="redshift"),
     corrupt("mass_is_a_group", lambda f: (f.__delitem__("eos/sly/mass"), f.create_group("eos/sly/mass")),
@@ -488,6 +492,19 @@ CASES = [
     Case("sweep_output_exists", existing_output, ("out.h5", "--force")),
     Case("sweep_output_is_a_folder", output_folder, ("out.h5", "folder")),
     Case("density_above_the_table", beyond_table, ("bad.toml", "sweep.central_density")),
+    # -- profile (issue 12): one line, exit 2, no file --------------------------------------
+    args_case("profile_mass_above_m_max", ["profile", "good.h5", "--eos", "sly", "--mass", "3.0", "-o", "p.h5"],
+              "mass", "above the maximum mass"),
+    args_case("profile_unknown_eos", ["profile", "good.h5", "--eos", "nope", "--mass", "1.4", "-o", "p.h5"],
+              "eos", "nope"),
+    args_case("profile_density_negative", ["profile", "good.h5", "--eos", "sly", "--central-density=-1e15",
+                                           "-o", "p.h5"], "central_density"),
+    args_case("profile_output_format", ["profile", "good.h5", "--eos", "sly", "--mass", "1.4", "-o", "p.txt"],
+              "p.txt"),
+    args_case("profile_two_choices", ["profile", "good.h5", "--mass", "1.4", "--central-density", "1e15",
+                                      "-o", "p.h5"], "--central-density"),
+    args_case("profile_outer_radius_below_1", ["profile", "good.h5", "--eos", "sly", "--central-density", "1e15",
+                                               "--outer-radius", "0.5", "-o", "p.h5"], "outer_radius"),
 ]
 
 

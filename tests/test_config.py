@@ -7,6 +7,7 @@ import pytest
 from conftest import EOS_TABLES, SLY_BLOCK, SMALL_DENSITY_AXIS, assert_one_error_line
 
 from stellar_match.config import load_config
+from stellar_match.eos.crust import SLY_CRUST_CORE_DENSITY
 
 SOFT_TABLE = EOS_TABLES / "hdm_soft.csv"  # rest-mass density 1e3 .. 4e15 g/cm^3
 
@@ -163,7 +164,8 @@ def test_values_list_is_kept_in_order(tmp_path):
     np.testing.assert_array_equal(config.axis.values, [1e15, 5e14, 2e15])
     assert config.text == cfg.read_text()
     assert [s.name for s in config.eos] == ["sly"]
-    assert config.eos[0].options == {"log10_p1": 34.384, "gammas": [3.005, 2.988, 2.851]}
+    assert config.eos[0].options == {"log10_p1": 34.384, "gammas": [3.005, 2.988, 2.851],
+                                     "crust_core_density": SLY_CRUST_CORE_DENSITY}  # the default (issue 12)
 
 
 def test_min_max_count_is_log_spaced(tmp_path):

@@ -16,6 +16,7 @@ from stellar_match import sweep
 from stellar_match.config import load_config
 from stellar_match.errors import RunFileError
 from stellar_match.runfile import STAR_DATASETS, read_run
+from stellar_match.schema import CRUST_DATASETS
 
 SOFT_TABLE = EOS_TABLES / "hdm_soft.csv"
 N_STARS = 20
@@ -125,7 +126,9 @@ def test_datasets_and_units(tiny_run):
         for name in ("sly", "soft"):
             g = f["eos"][name]
             datasets = {k for k, v in g.items() if isinstance(v, h5py.Dataset)}
-            assert datasets == set(SPEC_UNITS) | {"stable", "star"}  # star: the dimension scale
+            # star: the dimension scale; the crust datasets of the SLy crust fit (issue 12)
+            crust = set(CRUST_DATASETS) if "crust_core_density" in json.loads(g.attrs["parameters"]) else set()
+            assert datasets == set(SPEC_UNITS) | {"stable", "star"} | crust
             for col, unit in SPEC_UNITS.items():
                 d = g[col]
                 assert d.ndim == 1 and d.shape[0] == N_STARS, col
@@ -151,7 +154,8 @@ def test_read_run_matches_in_memory_sweep(tiny_run):
         memory = sweep.sweep_eos(spec.build(), config.axis.quantity, config.axis.values,
                                  chunk_size=config.solver.chunk_size)
         disk = run.eos[spec.name]
-        assert list(disk.columns) == list(STAR_DATASETS) == list(memory.columns)
+        crust = list(CRUST_DATASETS) if spec.kind == "piecewise_polytrope" else []  # issue 12
+        assert sorted(disk.columns) == sorted(list(STAR_DATASETS) + crust) == sorted(memory.columns)
         for col in STAR_DATASETS:
             np.testing.assert_array_equal(disk[col], memory[col], err_msg=col)
         assert disk.stable.dtype == np.bool_

@@ -83,6 +83,9 @@ class EquationOfState(ABC):
     density_axis : bool
         False for an EOS without a rest-mass density axis (sweep its central
         pressure instead).
+    crust_core_enthalpy : float or None
+        Log-enthalpy of the crust-core boundary of an EOS with a crust (the
+        solver records the star's state there, see :mod:`.crust`); None: no crust.
     """
 
     name: str
@@ -94,6 +97,8 @@ class EquationOfState(ABC):
     surface_energy_density: float = 0.0
     interior_jumps: InteriorJumps | None = None
     density_axis: bool = True
+    # -- the crust (issue 12): where the crust datasets are measured
+    crust_core_enthalpy: float | None = None
 
     @abstractmethod
     def piece_index(self, h: np.ndarray) -> np.ndarray:

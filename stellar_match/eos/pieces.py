@@ -26,6 +26,7 @@ from .. import units
 from ..errors import InputError, TableError
 from . import registry
 from .base import EquationOfState
+from .crust import CRUST_CORE_KEY, SLY_CRUST_CORE_DENSITY, set_crust_core
 
 __all__ = [
     "PiecewisePolytrope",
@@ -267,7 +268,8 @@ def polytrope(name: str, K: float, gamma: float) -> PiecewisePolytrope:
 
 
 def read_piecewise_polytrope(
-    name: str, log10_p1: float, gammas: tuple[float, float, float] | list[float]
+    name: str, log10_p1: float, gammas: tuple[float, float, float] | list[float],
+    crust_core_density: float = SLY_CRUST_CORE_DENSITY,
 ) -> PiecewisePolytrope:
     """Read et al. (2009) four-parameter piecewise polytrope on the SLy crust.
 
@@ -282,6 +284,9 @@ def read_piecewise_polytrope(
     gammas : sequence of 3 floats
         Gamma_1, Gamma_2, Gamma_3 of the core pieces, dividing densities
         10^14.7 and 10^15.0 g/cm^3.
+    crust_core_density : float or Quantity, optional
+        Rest-mass density (g/cm^3) of the crust-core boundary, where the
+        crust datasets are measured (:mod:`.crust`); default SLy's.
 
     Notes
     -----
@@ -324,14 +329,14 @@ def read_piecewise_polytrope(
     if not np.all(np.isfinite(K) & (K > 0)):
         raise InputError(f"gammas {gammas} make a polytropic constant over- or underflow", key="gammas")
     g = np.concatenate([crust_g, gammas])
-    return PiecewisePolytrope(
+    return set_crust_core(PiecewisePolytrope(
         name=name,
         kind="piecewise_polytrope",
         lower_densities=lower * units.DENSITY_CGS_TO_GEOM,
         K=K,
         gamma=g,
         parameters={"log10_p1": float(log10_p1), "gammas": gammas, "crust": "SLy (Read et al. 2009)"},
-    )
+    ), crust_core_density)
 
 
 # --- Tables ------------------------------------------------------------------
@@ -447,7 +452,8 @@ def read_table_file(path: Path, columns: TableColumns) -> tuple[np.ndarray, np.n
 FIRST_LAW_TOLERANCE = 0.05
 
 
-def from_table(name: str, path: str | Path, columns: TableColumns) -> PiecewisePolytrope:
+def from_table(name: str, path: str | Path, columns: TableColumns,
+               crust_core_density: float | None = None) -> PiecewisePolytrope:
     """Build a thermodynamically consistent EOS from a CSV table.
 
     Between consecutive rows the pressure is the power law through both rows,
@@ -466,6 +472,9 @@ def from_table(name: str, path: str | Path, columns: TableColumns) -> PiecewiseP
         CSV file.
     columns : TableColumns
         Column names and units.
+    crust_core_density : float or Quantity, optional
+        Rest-mass density (g/cm^3) of the table's crust-core boundary; given,
+        the sweeps write the crust datasets (:mod:`.crust`); default: no crust.
 
     Raises
     ------
@@ -527,6 +536,8 @@ def from_table(name: str, path: str | Path, columns: TableColumns) -> PiecewiseP
         "max_first_law_deviation": float(deviation[worst]),
         "baryon_mass_g": units.NEUTRON_MASS_G,
     }
+    if crust_core_density is not None:
+        set_crust_core(eos, crust_core_density)
     return eos
 
 
@@ -601,7 +612,7 @@ def _parse_columns(reader: registry.KeyReader) -> TableColumns:
 def _build_table(name: str, options: dict) -> PiecewisePolytrope:
     path = Path(options["path"])
     check_table_file(path)
-    return from_table(name, path, options["columns"])
+    return from_table(name, path, options["columns"], options.get(CRUST_CORE_KEY))
 
 
 def _rebuild_table(name: str, p: dict) -> PiecewisePolytrope:
@@ -609,7 +620,7 @@ def _rebuild_table(name: str, p: dict) -> PiecewisePolytrope:
     density_kind = "baryon_density" if "baryon_density" in cols else "rest_mass_density"
     columns = TableColumns(tuple(cols["pressure"]), tuple(cols["energy_density"]), tuple(cols[density_kind]),
                            density_kind)
-    return from_table(name, p["path"], columns)
+    return from_table(name, p["path"], columns, p.get(CRUST_CORE_KEY))
 
 
 registry.register(registry.EOSKind(
@@ -623,20 +634,24 @@ registry.register(registry.EOSKind(
 ))
 registry.register(registry.EOSKind(
     name="piecewise_polytrope",
-    keys=("log10_p1", "gammas"),
+    keys=("log10_p1", "gammas", CRUST_CORE_KEY),
     required=("log10_p1", "gammas"),
     parse=lambda r: {"log10_p1": r.number("log10_p1"),
-                     "gammas": r.numbers("gammas", min_count=3, max_count=3, usage="[G1, G2, G3]")},
-    build=lambda name, o: read_piecewise_polytrope(name, o["log10_p1"], o["gammas"]),
+                     "gammas": r.numbers("gammas", min_count=3, max_count=3, usage="[G1, G2, G3]"),
+                     CRUST_CORE_KEY: r.number(CRUST_CORE_KEY, default=SLY_CRUST_CORE_DENSITY, positive=True)},
+    build=lambda name, o: read_piecewise_polytrope(name, o["log10_p1"], o["gammas"],
+                                                   o.get(CRUST_CORE_KEY, SLY_CRUST_CORE_DENSITY)),
     columns=(registry.Column("log10_p1"),
              registry.Column("gammas", element=lambda k: f"gamma{k + 1}", min_count=3, max_count=3)),
     summary="Read et al. (2009) three core pieces on the SLy crust",
+    extra_datasets=("crust_thickness", "crust_mass", "crust_inertia_fraction"),
 ))
 registry.register(registry.EOSKind(
     name="table",
-    keys=("path", "columns"),
+    keys=("path", "columns", CRUST_CORE_KEY),
     required=("path", "columns"),
-    parse=lambda r: {"path": r.path("path"), "columns": _parse_columns(r)},
+    parse=lambda r: {"path": r.path("path"), "columns": _parse_columns(r),
+                     CRUST_CORE_KEY: r.number(CRUST_CORE_KEY, default=None, positive=True)},
     build=_build_table,
     rebuild=_rebuild_table,
     summary="CSV table, power law in p(rho) per interval, eps from the first law",

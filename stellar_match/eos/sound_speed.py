@@ -25,6 +25,7 @@ import numpy as np
 from .. import units
 from ..errors import InputError
 from . import registry
+from .crust import CRUST_CORE_KEY, SLY_CRUST_CORE_DENSITY, set_crust_core
 from .joined import JoinedEOS
 from .pieces import sly_crust
 from .smooth import ExpPolynomialPieces, SmoothPieces, constant_sound_speed_coefficients
@@ -42,7 +43,8 @@ DENSITY_KNOT_SPACING = 0.2
 _GL_X, _GL_W = np.polynomial.legendre.leggauss(24)
 
 
-def sound_speed_nodes(name: str, densities, sound_speed_squared) -> JoinedEOS:
+def sound_speed_nodes(name: str, densities, sound_speed_squared,
+                      crust_core_density: float = SLY_CRUST_CORE_DENSITY) -> JoinedEOS:
     """EOS with c_s^2 linear in ln n between nodes above ``densities[0]`` on the SLy crust fit.
 
     Parameters
@@ -54,6 +56,9 @@ def sound_speed_nodes(name: str, densities, sound_speed_squared) -> JoinedEOS:
         them; the first is where the EOS leaves the crust fit.
     sound_speed_squared : sequence of float
         c_s^2 / c^2 at the nodes, each in (0, 1].
+    crust_core_density : float or Quantity, optional
+        Rest-mass density (g/cm^3) of the crust-core boundary, where the
+        crust datasets are measured (:mod:`.crust`); default SLy's.
 
     Raises
     ------
@@ -118,12 +123,12 @@ def sound_speed_nodes(name: str, densities, sound_speed_squared) -> JoinedEOS:
         core = SmoothPieces.from_knots(name, "sound_speed_nodes", hk, pk, wk - pk, ck,
                                        crust.surface_enthalpy_per_mass, h_max=float(hk[-1]))
         parts, joins = [crust, core, top], [h0, float(hk[-1])]
-    return JoinedEOS(name=name, kind="sound_speed_nodes", parts=parts, joins=joins, parameters={
+    return set_crust_core(JoinedEOS(name=name, kind="sound_speed_nodes", parts=parts, joins=joins, parameters={
         "densities": [float(v) for v in rho], "sound_speed_squared": [float(v) for v in cs2],
         "densities_unit": "g/cm3 (rest-mass density m_n n)", "crust": "SLy (Read et al. 2009)",
         "interpolation": "c_s^2 linear in ln n between nodes, constant above the last",
         "representation": f"quintic Hermite pieces of ln p, knots at the nodes and every {KNOT_SPACING} in ln p",
-    })
+    }), crust_core_density)
 
 
 def _gauss(f, a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -135,11 +140,14 @@ def _gauss(f, a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
 registry.register(registry.EOSKind(
     name="sound_speed_nodes",
-    keys=("densities", "sound_speed_squared"),
+    keys=("densities", "sound_speed_squared", CRUST_CORE_KEY),
     required=("densities", "sound_speed_squared"),
     parse=lambda r: {"densities": r.numbers("densities", min_count=1, max_count=MAX_NODES),
-                     "sound_speed_squared": r.numbers("sound_speed_squared", min_count=1, max_count=MAX_NODES)},
-    build=lambda name, o: sound_speed_nodes(name, o["densities"], o["sound_speed_squared"]),
+                     "sound_speed_squared": r.numbers("sound_speed_squared", min_count=1, max_count=MAX_NODES),
+                     CRUST_CORE_KEY: r.number(CRUST_CORE_KEY, default=SLY_CRUST_CORE_DENSITY, positive=True)},
+    build=lambda name, o: sound_speed_nodes(name, o["densities"], o["sound_speed_squared"],
+                                            o.get(CRUST_CORE_KEY, SLY_CRUST_CORE_DENSITY)),
     columns=(registry.Column("sound_speed_squared", element=lambda k: f"cs2_{k}", length_key="densities"),),
     summary="c_s^2 linear in ln n between nodes above a join on the SLy crust fit",
+    extra_datasets=("crust_thickness", "crust_mass", "crust_inertia_fraction"),
 ))

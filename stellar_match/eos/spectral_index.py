@@ -31,6 +31,7 @@ import numpy as np
 from .. import units
 from ..errors import InputError
 from . import registry
+from .crust import CRUST_CORE_KEY, SLY_CRUST_CORE_DENSITY, set_crust_core
 from .joined import JoinedEOS
 from .pieces import sly_crust
 from .smooth import SmoothPieces
@@ -82,7 +83,8 @@ def spectral_solution(gammas, p0: float, eps0: float, x_top: float, *, rtol: flo
     return sol
 
 
-def spectral(name: str, gammas, reference_pressure: float = DEFAULT_REFERENCE_PRESSURE) -> JoinedEOS:
+def spectral(name: str, gammas, reference_pressure: float = DEFAULT_REFERENCE_PRESSURE,
+             crust_core_density: float = SLY_CRUST_CORE_DENSITY) -> JoinedEOS:
     """Spectral EOS Gamma(x) = exp(sum gamma_k x^k) above ``reference_pressure`` on the SLy crust fit.
 
     Parameters
@@ -93,6 +95,9 @@ def spectral(name: str, gammas, reference_pressure: float = DEFAULT_REFERENCE_PR
         gamma_0 .. gamma_3 (Lindblom 2010).
     reference_pressure : float or Quantity
         p_0 in dyn/cm^2, where x = 0 and the spectral part joins the crust.
+    crust_core_density : float or Quantity, optional
+        Rest-mass density (g/cm^3) of the crust-core boundary, where the
+        crust datasets are measured (:mod:`.crust`); default SLy's.
 
     Raises
     ------
@@ -145,17 +150,20 @@ def spectral(name: str, gammas, reference_pressure: float = DEFAULT_REFERENCE_PR
         "representation": f"quintic Hermite pieces of ln p, knots every {KNOT_SPACING} in ln p",
     })
     eos.density_range = (0.0, float(units.density_from_geometric(eos.state(np.array([eos.h_max]))[2][0])))
-    return eos
+    return set_crust_core(eos, crust_core_density)
 
 
 registry.register(registry.EOSKind(
     name="spectral",
-    keys=("gammas", "reference_pressure"),
+    keys=("gammas", "reference_pressure", CRUST_CORE_KEY),
     required=("gammas",),
     parse=lambda r: {"gammas": r.numbers("gammas", min_count=2, max_count=4, usage="[gamma0, gamma1, ...]"),
-                     "reference_pressure": r.number("reference_pressure", default=DEFAULT_REFERENCE_PRESSURE)},
-    build=lambda name, o: spectral(name, o["gammas"], o["reference_pressure"]),
+                     "reference_pressure": r.number("reference_pressure", default=DEFAULT_REFERENCE_PRESSURE),
+                     CRUST_CORE_KEY: r.number(CRUST_CORE_KEY, default=SLY_CRUST_CORE_DENSITY, positive=True)},
+    build=lambda name, o: spectral(name, o["gammas"], o["reference_pressure"],
+                                   o.get(CRUST_CORE_KEY, SLY_CRUST_CORE_DENSITY)),
     columns=(registry.Column("gammas", element=lambda k: f"gamma{k}", min_count=2, max_count=4),
              registry.Column("reference_pressure", default=DEFAULT_REFERENCE_PRESSURE)),
     summary="Lindblom (2010) spectral Gamma(x) = exp(sum gamma_k x^k) above p_0 on the SLy crust fit",
+    extra_datasets=("crust_thickness", "crust_mass", "crust_inertia_fraction"),
 ))

@@ -62,6 +62,9 @@ class EOSStack:
             self.interior_jumps = InteriorJumps(h, de, p)
         else:
             self.interior_jumps = None
+        # the crust-core boundary of each member (issue 12): all members or none (one kind)
+        crust = [m.crust_core_enthalpy for m in members]
+        self.crust_core_enthalpy = None if any(c is None for c in crust) else np.array(crust, dtype=float)
 
     def bind(self, member) -> BoundEOSStack:
         """The stack seen by a batch whose star j belongs to member ``member[j]``."""
@@ -86,6 +89,8 @@ class BoundEOSStack:
         jumps = stack.interior_jumps
         self.interior_jumps = None if jumps is None else InteriorJumps(
             jumps.h[:, member], jumps.delta_eps[:, member], jumps.pressure[:, member])
+        crust = stack.crust_core_enthalpy
+        self.crust_core_enthalpy = None if crust is None else crust[member]
 
     def select(self, stars) -> BoundEOSStack:
         """The same stack bound to a subset of this batch's stars."""

@@ -101,7 +101,7 @@ def phase_transition(name: str, base: EquationOfState, transition_pressure: floa
     eps_t_cgs = units.density_from_geometric(eps_t)
     p_t_cgs = units.pressure_from_geometric(p_geo)
     c2 = (units.SPEED_OF_LIGHT_SI * 1e2) ** 2
-    return JoinedEOS(
+    joined = JoinedEOS(
         name=name, kind="phase_transition", parts=parts, joins=joins,
         interior_jumps=InteriorJumps(np.array([h_t]), np.array([delta]), np.array([p_geo])),
         table_sha256=base.table_sha256,
@@ -114,6 +114,10 @@ def phase_transition(name: str, base: EquationOfState, transition_pressure: floa
             "seidov_critical_jump": seidov_critical_jump(eps_t_cgs, p_t_cgs / c2),
         },
     )
+    # the base's crust (issue 12), ending at the transition at the latest
+    if base.crust_core_enthalpy is not None:
+        joined.crust_core_enthalpy = min(float(base.crust_core_enthalpy), h_t)
+    return joined
 
 
 def _parse(reader: registry.KeyReader) -> dict:
