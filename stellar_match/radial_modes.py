@@ -1,0 +1,274 @@
+"""Adiabatic radial oscillation modes of a batch of stars (issue 12, section 3).
+
+Equation
+--------
+Chandrasekhar's (1964, ApJ 140, 417) radial pulsation equation, in its
+Sturm-Liouville form (G = c = 1; the form as written by Bardeen, Thorne &
+Meltzer 1966, ApJ 145, 505, from memory):
+
+    d/dr (P du/dr) + (Q + omega^2 W) u = 0,      u = r^2 e^(-nu/2) Delta r,
+
+    P = e^((lambda + 3 nu)/2) Gamma_1 p / r^2,
+    W = e^((3 lambda + nu)/2) (eps + p) / r^2,
+    Q = e^((lambda + 3 nu)/2) [ p'^2 / (r^2 (eps + p)) - 4 p' / r^3
+                               - 8 pi e^lambda p (eps + p) / r^2 ],
+
+with e^lambda = (1 - 2m/r)^-1, nu = ln(1 - 2M/R) - 2h (the background in
+log-enthalpy form) and p' = dp/dr = (eps + p) dh/dr,
+dh/dr = -(m + 4 pi r^3 p) / (r (r - 2m)).  The Lagrangian pressure
+perturbation is Delta p = -Gamma_1 p e^(nu/2) r^-2 du/dr, so the surface
+condition Delta p = 0 is the natural boundary condition P du/dr = 0 of the
+variational form, for a surface at p = 0 and for a bare (finite-density)
+quark surface alike; u = 0 (u ~ r^3) at the centre.
+
+Method
+------
+The weak form  int P u' v' - Q u v dr = omega^2 int W u v dr  is discretised
+with linear finite elements on each star's own solver nodes
+(:func:`stellar_match.structure.solve_profiles`), every interval cut into
+``subdivisions`` equal parts in r; h(r) and m(r) between nodes are cubic
+Hermite interpolants with their exact slopes dh/dr, dm/dr = 4 pi r^2 eps
+from the TOV equations, and p, eps, Gamma_1 p come from the EOS at h(r).
+Coefficients are taken at element midpoints and W is lumped, so each star
+gives a symmetric tridiagonal eigenproblem, solved for its lowest N
+eigenvalues by LAPACK (``scipy.linalg.eigh_tridiagonal``).  Sturm-Liouville
+theory orders them: the k-th eigenvalue has k nodes in u, mode k.  The
+discretisation error is O(h^2); the result is Richardson-extrapolated from
+``subdivisions`` and twice as many.
+
+Interior density jumps are not handled yet: such stars get NaN and
+status 4 (the rapid and slow junction conditions are left undone).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from scipy.linalg import eigh_tridiagonal
+
+from . import units
+from .eos import EquationOfState
+from .eos.base import central_enthalpy as _central_enthalpy
+from .structure import DEFAULT_STEPS, StepControl, solve_profiles
+
+__all__ = ["RadialModes", "MODE_STATUS", "mode_eigenvalues", "radial_modes_of_eos", "radial_modes"]
+
+FOUR_PI = 4.0 * np.pi
+#: Largest number of modes a sweep may ask for (config check).
+MAX_MODES = 10
+#: Status codes of radial modes.
+MODE_STATUS = {
+    0: "ok",
+    1: "the star itself has a non-zero status",
+    2: "eigenproblem not finite",
+    3: "too few grid points for the modes asked",
+    4: "interior density jump: junction conditions not implemented",
+}
+DEFAULT_SUBDIVISIONS = 6
+
+
+@dataclass
+class RadialModes:
+    """Radial modes of a batch of stars.
+
+    Attributes
+    ----------
+    omega_squared : ndarray, shape (stars, modes)
+        omega^2 in (rad/s)^2 (``units.ANGULAR_FREQUENCY_SQUARED_UNIT``); NaN where not computed.
+    frequency : ndarray, shape (stars, modes)
+        omega / 2 pi in kHz; NaN where omega^2 < 0 or not computed.
+    stable : ndarray of bool, shape (stars,)
+        omega_0^2 > 0.
+    status : ndarray of int8, shape (stars,)
+        ``MODE_STATUS`` code.
+    """
+
+    omega_squared: np.ndarray
+    frequency: np.ndarray
+    stable: np.ndarray
+    status: np.ndarray
+
+    def __repr__(self) -> str:
+        n, k = self.omega_squared.shape
+        return f"RadialModes({n} stars x {k} modes, {int(np.count_nonzero(self.stable))} radially stable)"
+
+    def to_table(self):
+        """An astropy QTable, one row per star."""
+        return units.quantity_table(
+            {"radial_omega_squared": self.omega_squared, "radial_frequency": self.frequency,
+             "radial_stable": self.stable, "radial_status": self.status},
+            {"radial_omega_squared": units.ANGULAR_FREQUENCY_SQUARED_UNIT,
+             "radial_frequency": units.FREQUENCY_UNIT, "radial_stable": "", "radial_status": ""},
+        )
+
+
+def mode_eigenvalues(radius, pressure, energy_density, gamma_pressure, mass, nu, modes: int):
+    """Lowest ``modes`` eigenvalues omega^2 (km^-2) of the discretised pulsation equation.
+
+    Parameters
+    ----------
+    radius, pressure, energy_density, gamma_pressure, mass, nu : ndarray, shape (stars, points)
+        Background at grid points centre -> surface (r = 0 first), geometric
+        units, NaN-padded past each star's surface: r, p, eps, Gamma_1 p, m(r), nu(r).
+    modes : int
+        Number of eigenvalues.
+
+    Returns
+    -------
+    omega2 : ndarray, shape (stars, modes)
+        NaN for a star with too few points or a non-finite problem.
+    status : ndarray of int8, shape (stars,)
+    """
+    r = np.asarray(radius, dtype=float)
+    n_stars = r.shape[0]
+    with np.errstate(all="ignore"):
+        # element midpoints (coefficients, midpoint rule)
+        mid = {name: 0.5 * (a[:, 1:] + a[:, :-1]) for name, a in
+               (("r", r), ("p", pressure), ("e", energy_density), ("g", gamma_pressure), ("m", mass), ("nu", nu))}
+        rm, pm, em, gm, mm, num = (mid[k] for k in ("r", "p", "e", "g", "m", "nu"))
+        dr = np.diff(r, axis=1)
+        e_lam = 1.0 / (1.0 - 2.0 * mm / rm)
+        lam = np.log(e_lam)
+        dh_dr = -(mm + FOUR_PI * rm**3 * pm) / (rm * (rm - 2.0 * mm))
+        dp_dr = (em + pm) * dh_dr
+        a1 = np.exp(0.5 * (lam + 3.0 * num))
+        P = a1 * gm / rm**2
+        W = np.exp(0.5 * (3.0 * lam + num)) * (em + pm) / rm**2
+        Q = a1 * (dp_dr**2 / (rm**2 * (em + pm)) - 4.0 * dp_dr / rm**3 - 8.0 * np.pi * e_lam * pm * (em + pm) / rm**2)
+        stiff = P / dr  # element stiffness
+        wq = 0.5 * W * dr  # lumped mass, half an element to each end
+        qq = 0.5 * Q * dr
+    omega2 = np.full((n_stars, modes), np.nan)
+    status = np.zeros(n_stars, dtype=np.int8)
+    for j in range(n_stars):  # one LAPACK call per star; assembly above is batched
+        k = np.flatnonzero(np.isfinite(dr[j]) & (dr[j] > 0))
+        if k.size < 4 * modes + 8:
+            status[j] = 3
+            continue
+        s, w, q = stiff[j, k], wq[j, k], qq[j, k]
+        # unknowns u_1 .. u_N (u_0 = 0 at the centre); node i touches elements i-1 and i
+        diag = s + np.append(s[1:], 0.0) - (q + np.append(q[1:], 0.0))
+        mass_l = w + np.append(w[1:], 0.0)
+        off = -s[1:]
+        if not (np.all(np.isfinite(diag)) and np.all(np.isfinite(off)) and np.all(mass_l > 0)):
+            status[j] = 2
+            continue
+        scale = 1.0 / np.sqrt(mass_l)
+        vals = eigh_tridiagonal(diag * scale**2, off * scale[1:] * scale[:-1], eigvals_only=True,
+                                select="i", select_range=(0, modes - 1))
+        omega2[j] = vals
+    return omega2, status
+
+
+def _refine(eos: EquationOfState, prof, j_rows: np.ndarray, subdivisions: int, gamma1: float | None):
+    """Background on each interval cut into ``subdivisions`` parts in r (Hermite h(r), m(r))."""
+    r = prof.radius[j_rows]
+    h = prof.enthalpy[j_rows]
+    m = prof.mass[j_rows]
+    p = prof.pressure[j_rows]
+    eps = prof.energy_density[j_rows]
+    with np.errstate(all="ignore"):
+        dh = np.where(r > 0, -(m + FOUR_PI * r**3 * p) / (r * (r - 2.0 * m)), 0.0)
+        dm = FOUR_PI * r**2 * eps
+        t = (np.arange(subdivisions) / subdivisions)[None, None, :]
+        r0, r1 = r[:, :-1, None], r[:, 1:, None]
+        L = r1 - r0
+        h00, h10, h01, h11 = 2 * t**3 - 3 * t**2 + 1, t**3 - 2 * t**2 + t, -2 * t**3 + 3 * t**2, t**3 - t**2
+
+        def herm(f, df):
+            return (h00 * f[:, :-1, None] + h10 * L * df[:, :-1, None] + h01 * f[:, 1:, None]
+                    + h11 * L * df[:, 1:, None])
+
+        rr = (r0 + t * L).reshape(r.shape[0], -1)
+        hh = herm(h, dh).reshape(r.shape[0], -1)
+        mm = herm(m, dm).reshape(r.shape[0], -1)
+        # the surface node closes each row (where the row's last finite node is)
+        last = np.array([np.flatnonzero(np.isfinite(row))[-1] for row in r])
+        rows = np.arange(r.shape[0])
+        rr = np.concatenate([rr, np.full((r.shape[0], 1), np.nan)], axis=1)
+        hh = np.concatenate([hh, np.full((r.shape[0], 1), np.nan)], axis=1)
+        mm = np.concatenate([mm, np.full((r.shape[0], 1), np.nan)], axis=1)
+        pos = last * subdivisions
+        rr[rows, pos], hh[rows, pos], mm[rows, pos] = r[rows, last], h[rows, last], m[rows, last]
+        hh = np.clip(hh, 0.0, None)
+        ok = np.isfinite(hh)
+        pp, ee = np.full_like(hh, np.nan), np.full_like(hh, np.nan)
+        flat_p, flat_e, _ = eos.state(hh[ok])
+        pp[ok], ee[ok] = flat_p, flat_e
+        if gamma1 is None:
+            cs2 = np.full_like(hh, np.nan)
+            cs2[ok] = eos.sound_speed_squared(np.maximum(hh[ok], 1e-12 * prof.central_enthalpy[j_rows][
+                np.nonzero(ok)[0]]))
+            gp = (ee + pp) * cs2
+        else:
+            gp = gamma1 * pp
+        M, R = m[rows, last], r[rows, last]
+        nu = np.log(1.0 - 2.0 * M / R)[:, None] - 2.0 * hh
+    return rr, pp, ee, gp, mm, nu
+
+
+def radial_modes_of_eos(eos: EquationOfState, central_enthalpy, *, modes: int = 3, gamma1: float | None = None,
+                        control: StepControl = DEFAULT_STEPS, subdivisions: int = DEFAULT_SUBDIVISIONS,
+                        chunk: int = 256) -> RadialModes:
+    """Radial modes of the stars with the given central log-enthalpies (geometric inputs).
+
+    Parameters
+    ----------
+    eos : EquationOfState
+    central_enthalpy : array_like, shape (n,)
+    modes : int
+        Fundamental plus ``modes - 1`` overtones.
+    gamma1 : float, optional
+        Constant adiabatic index; None (default) takes the equilibrium
+        Gamma_1 = (eps + p) c_s^2 / p of the EOS itself.
+    control : StepControl
+        Solver control of the background (as in the sweep).
+    subdivisions : int
+        Elements per solver interval (the result is extrapolated from this and twice it).
+    chunk : int
+        Stars per batch (memory).
+    """
+    h_c = np.atleast_1d(np.asarray(central_enthalpy, dtype=float))
+    n = h_c.size
+    out = np.full((n, modes), np.nan)
+    status = np.zeros(n, dtype=np.int8)
+    for start in range(0, n, chunk):
+        sel = slice(start, min(n, start + chunk))
+        stars, prof = solve_profiles(eos, h_c[sel], control=control, response=False)
+        st = np.zeros(h_c[sel].size, dtype=np.int8)
+        st[np.asarray(prof.status) != 0] = 1
+        jumps = getattr(eos, "interior_jumps", None)
+        if jumps is not None:
+            inside = np.any(np.asarray(jumps.h).reshape(np.shape(jumps.h)[0], -1) < h_c[sel][None, :], axis=0)
+            st[(st == 0) & inside] = 4
+        good = np.flatnonzero(st == 0)
+        res = np.full((h_c[sel].size, modes), np.nan)
+        if good.size:
+            fine = []
+            for k in (subdivisions, 2 * subdivisions):
+                w2, s2 = mode_eigenvalues(*_refine(eos, prof, good, k, gamma1), modes)
+                fine.append(w2)
+                st[good] = np.where(st[good] == 0, s2, st[good])
+            # O(h^2) error: Richardson extrapolation
+            res[good] = (4.0 * fine[1] - fine[0]) / 3.0
+        bad = st != 0
+        res[bad] = np.nan
+        out[sel], status[sel] = res, st
+    w2 = units.angular_frequency_squared_from_geometric(out)
+    return RadialModes(omega_squared=w2, frequency=units.frequency_khz_from_angular_squared(w2),
+                       stable=np.asarray(w2[:, 0] > 0), status=status)
+
+
+def radial_modes(eos: EquationOfState, *, central_density=None, central_pressure=None, modes: int = 3,
+                 gamma1: float | None = None, control: StepControl = DEFAULT_STEPS) -> RadialModes:
+    """Radial modes of stars chosen by central density (g/cm^3) or pressure (dyn/cm^2), or Quantities.
+
+    Exactly one of ``central_density`` and ``central_pressure``; see :func:`radial_modes_of_eos`.
+    """
+    if (central_density is None) == (central_pressure is None):
+        raise TypeError("give exactly one of central_density and central_pressure")
+    quantity = "central_density" if central_density is not None else "central_pressure"
+    values = central_density if central_density is not None else central_pressure
+    h = _central_enthalpy(eos, quantity, np.atleast_1d(values) if not units.is_quantity(values) else values)
+    return radial_modes_of_eos(eos, h, modes=modes, gamma1=gamma1, control=control)

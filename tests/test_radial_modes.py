@@ -1,0 +1,66 @@
+"""Radial oscillation modes (stellar_match.radial_modes)."""
+
+import numpy as np
+import pytest
+from scipy.optimize import brentq
+
+import stellar_match as sm
+from stellar_match import radial_modes as rmod
+from stellar_match import units
+
+
+def test_newtonian_homogeneous_sphere_fundamental():
+    # Homogeneous sphere, constant Gamma_1, Newtonian: omega_0^2 = (3 Gamma_1 - 4)(4 pi G rho / 3)
+    # (classical result, from memory; /work/shared/REFERENCE_VALUES.md); compactness ~1e-6 here,
+    # so the relativistic correction is far below the 1e-4 tolerance.
+    rho = 1e12
+    eos = sm.incompressible("u", rho)
+    for gamma1 in (5.0 / 3.0, 2.0, 3.0):
+        res = rmod.radial_modes_of_eos(eos, np.array([1e-6]), modes=2, gamma1=gamma1)
+        expected = (3 * gamma1 - 4) * 4 * np.pi * units.GRAVITATIONAL_CONSTANT_SI * 1e3 * rho / 3
+        assert res.status[0] == 0
+        assert res.omega_squared[0, 0] == pytest.approx(expected, rel=1e-4)
+        assert res.stable[0]
+
+
+def test_fundamental_changes_sign_at_maximum_mass():
+    # Equilibrium Gamma_1 (the EOS's own): omega_0^2 = 0 at the turning point dM/drho_c = 0
+    # (Harrison, Thorne, Wakano & Wheeler 1965, "Gravitation Theory and Gravitational Collapse",
+    # from memory); SLy parameters of Read et al. 2009, PRD 79, 124032, Table III.
+    eos = sm.read_piecewise_polytrope("sly", 34.384, [3.005, 2.988, 2.851])
+    seq = sm.sweep_eos(eos, "central_density", np.geomspace(1.2e15, 3e15, 12))
+    ln_max = np.log(seq.summary["max_mass_central_density"])
+
+    def omega0(ln_rho):
+        return rmod.radial_modes(eos, central_density=np.exp(ln_rho), modes=1).omega_squared[0, 0]
+
+    assert omega0(ln_max - 0.05) > 0 > omega0(ln_max + 0.05)
+    root = brentq(omega0, ln_max - 0.05, ln_max + 0.05, xtol=1e-7)
+    assert abs(root - ln_max) < 1e-4
+
+
+def test_overtones_increase_with_order_and_units():
+    # Sturm-Liouville ordering: omega_0^2 < omega_1^2 < ... (Chandrasekhar 1964, ApJ 140, 417)
+    eos = sm.read_piecewise_polytrope("sly", 34.384, [3.005, 2.988, 2.851])
+    res = rmod.radial_modes(eos, central_density=np.geomspace(4e14, 1.8e15, 6), modes=4)
+    assert np.all(res.status == 0) and np.all(res.stable)
+    assert np.all(np.diff(res.omega_squared, axis=1) > 0)
+    assert np.all(np.diff(res.frequency, axis=1) > 0)
+    np.testing.assert_allclose(res.frequency, np.sqrt(res.omega_squared) / (2 * np.pi) / 1e3)
+    table = res.to_table()
+    assert str(table["radial_frequency"].unit) == "kHz"
+
+
+def test_unstable_star_has_nan_frequency():
+    eos = sm.read_piecewise_polytrope("sly", 34.384, [3.005, 2.988, 2.851])
+    res = rmod.radial_modes(eos, central_density=[3.5e15], modes=2)
+    assert res.omega_squared[0, 0] < 0 and np.isnan(res.frequency[0, 0]) and not res.stable[0]
+    assert np.isfinite(res.frequency[0, 1])
+
+
+def test_interior_jump_is_nan_with_status():
+    base = sm.read_piecewise_polytrope("sly", 34.384, [3.005, 2.988, 2.851])
+    hybrid = sm.phase_transition("hybrid", base, 1.0e35, 3.0e14, 1.0)
+    res = rmod.radial_modes(hybrid, central_pressure=[5e34, 3e35], modes=2)
+    assert res.status[0] == 0 and np.all(np.isfinite(res.omega_squared[0]))
+    assert res.status[1] == 4 and np.all(np.isnan(res.omega_squared[1]))
