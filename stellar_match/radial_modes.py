@@ -50,21 +50,16 @@ from scipy.linalg import eigh_tridiagonal
 from . import units
 from .eos import EquationOfState
 from .eos.base import central_enthalpy as _central_enthalpy
+from .schema import RADIAL_STATUS
 from .structure import DEFAULT_STEPS, StepControl, solve_profiles
 
-__all__ = ["RadialModes", "MODE_STATUS", "mode_eigenvalues", "radial_modes_of_eos", "radial_modes"]
+__all__ = ["RadialModes", "MODE_STATUS", "mode_eigenvalues", "radial_modes_of_eos", "radial_modes", "radial_columns"]
 
 FOUR_PI = 4.0 * np.pi
 #: Largest number of modes a sweep may ask for (config check).
 MAX_MODES = 10
-#: Status codes of radial modes.
-MODE_STATUS = {
-    0: "ok",
-    1: "the star itself has a non-zero status",
-    2: "eigenproblem not finite",
-    3: "too few grid points for the modes asked",
-    4: "interior density jump: junction conditions not implemented",
-}
+#: Status codes of radial modes (the schema owns them).
+MODE_STATUS = RADIAL_STATUS
 DEFAULT_SUBDIVISIONS = 6
 
 
@@ -272,3 +267,11 @@ def radial_modes(eos: EquationOfState, *, central_density=None, central_pressure
     values = central_density if central_density is not None else central_pressure
     h = _central_enthalpy(eos, quantity, np.atleast_1d(values) if not units.is_quantity(values) else values)
     return radial_modes_of_eos(eos, h, modes=modes, gamma1=gamma1, control=control)
+
+
+def radial_columns(eos: EquationOfState, central_enthalpy, modes: int, *, gamma1: float | None = None,
+                   control: StepControl = DEFAULT_STEPS) -> dict[str, np.ndarray]:
+    """The run-file columns of ``schema.RADIAL_MODE_DATASETS`` for a chunk of stars."""
+    res = radial_modes_of_eos(eos, central_enthalpy, modes=modes, gamma1=gamma1, control=control)
+    return {"radial_omega_squared": res.omega_squared, "radial_frequency": res.frequency,
+            "radial_stable": res.stable, "radial_status": res.status}

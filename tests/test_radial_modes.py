@@ -64,3 +64,35 @@ def test_interior_jump_is_nan_with_status():
     res = rmod.radial_modes(hybrid, central_pressure=[5e34, 3e35], modes=2)
     assert res.status[0] == 0 and np.all(np.isfinite(res.omega_squared[0]))
     assert res.status[1] == 4 and np.all(np.isnan(res.omega_squared[1]))
+
+
+def test_sweep_writes_radial_datasets_and_summary_reports_disagreement(tmp_path):
+    # the config path end to end; with a constant Gamma_1 = 1.3 < 4/3 every star is radially unstable
+    # (Newtonian limit omega_0^2 proportional to 3 Gamma_1 - 4; from memory) while the turning-point
+    # rule calls the stars below the maximum stable: summary must say so.
+    import h5py
+    from astropy import units as u
+
+    from stellar_match.cli import summary_table
+    from stellar_match.runfile import read_run
+
+    for gamma, expect in (("\"equilibrium\"", False), ("1.3", True)):
+        cfg = tmp_path / "modes.toml"
+        cfg.write_text("[sweep]\ncentral_density = { min = 1.5e15, max = 3.0e15, count = 8 }\nradial_modes = 3\n"
+                       f"radial_adiabatic_index = {gamma}\n"
+                       '[[eos]]\nname = "sly"\nkind = "piecewise_polytrope"\nlog10_p1 = 34.384\n'
+                       "gammas = [3.005, 2.988, 2.851]\n")
+        out = sm.run_config(cfg, tmp_path / "m.h5", force=True)
+        with h5py.File(out) as f:
+            g = f["eos/sly"]
+            assert g["radial_omega_squared"].shape == (8, 3) and g["radial_frequency"].shape == (8, 3)
+            for name in ("radial_omega_squared", "radial_frequency"):
+                u.Unit(g[name].attrs["unit"])  # astropy parses the unit
+            assert g["radial_frequency"].attrs["unit"] == "kHz"
+            assert g["radial_stable"].shape == (8,) and g["mode"].shape == (3,)
+            assert g["radial_frequency"].dims[1][0].name.endswith("/mode")
+        text = summary_table(read_run(out))
+        assert ("disagree" in text) is expect, text
+        if not expect:
+            run = read_run(out)
+            np.testing.assert_array_equal(run.eos["sly"]["radial_stable"], run.eos["sly"].stable)
