@@ -29,15 +29,20 @@ with linear finite elements on each star's own solver nodes
 ``subdivisions`` equal parts in r; h(r) and m(r) between nodes are cubic
 Hermite interpolants with their exact slopes dh/dr, dm/dr = 4 pi r^2 eps
 from the TOV equations, and p, eps, Gamma_1 p come from the EOS at h(r).
-Coefficients are taken at element midpoints and W is lumped, so each star
+Coefficients are taken at element midpoints (evaluated there, so an element
+next to a density jump sees its own phase) and W is lumped, so each star
 gives a symmetric tridiagonal eigenproblem, solved for its lowest N
 eigenvalues by LAPACK (``scipy.linalg.eigh_tridiagonal``).  Sturm-Liouville
 theory orders them: the k-th eigenvalue has k nodes in u, mode k.  The
 discretisation error is O(h^2); the result is Richardson-extrapolated from
 ``subdivisions`` and twice as many.
 
-Interior density jumps are not handled yet: such stars get NaN and
-status 4 (the rapid and slow junction conditions are left undone).
+At an interior density jump (``eos.interior_jumps``, one per EOS) the
+junction conditions of Pereira, Flores & Lugones (2018, ApJ 860, 12; from
+memory) apply, in xi = Delta r / r: slow conversion, [xi] = 0 and
+[Delta p] = 0, is the plain weak form with u continuous; rapid conversion
+(default), [Delta p] = 0 and [xi] = (Delta p / r) [1/p'], doubles u at the
+jump and adds the interface term [u][v] / kappa (see :func:`junction_coupling`).
 """
 
 from __future__ import annotations
@@ -61,6 +66,9 @@ MAX_MODES = 10
 #: Status codes of radial modes (the schema owns them).
 MODE_STATUS = RADIAL_STATUS
 DEFAULT_SUBDIVISIONS = 6
+#: Absolute bisection tolerance (km^-2): far below any omega^2 (1e-8 km^-2 is 1e3 rad^2/s^2), instead of
+#: LAPACK's eps ||T||, which the tiny elements near centre and surface make large.
+TRIDIAGONAL_TOLERANCE = 1e-300
 
 
 @dataclass
@@ -98,7 +106,8 @@ class RadialModes:
         )
 
 
-def mode_eigenvalues(radius, pressure, energy_density, gamma_pressure, mass, nu, modes: int):
+def mode_eigenvalues(radius, pressure, energy_density, gamma_pressure, mass, nu, modes: int,
+                     junction_index=None, junction_coupling=None, interleaved: bool = False):
     """Lowest ``modes`` eigenvalues omega^2 (km^-2) of the discretised pulsation equation.
 
     Parameters
@@ -108,6 +117,15 @@ def mode_eigenvalues(radius, pressure, energy_density, gamma_pressure, mass, nu,
         units, NaN-padded past each star's surface: r, p, eps, Gamma_1 p, m(r), nu(r).
     modes : int
         Number of eigenvalues.
+    junction_index : ndarray of int, shape (stars,), optional
+        Grid point of an interior density jump with rapid conversion (-1: none).  There u is
+        doubled into u_- and u_+ and the two are joined by the interface term [u][v] / kappa.
+    junction_coupling : ndarray, shape (stars,), optional
+        1 / kappa at that jump (see :func:`junction_coupling`).
+    interleaved : bool
+        The odd points are the element midpoints (the background evaluated there, on the right
+        side of any density jump) and the even points the grid; otherwise midpoint values are
+        averages of the neighbouring points.  ``junction_index`` counts grid points.
 
     Returns
     -------
@@ -119,8 +137,12 @@ def mode_eigenvalues(radius, pressure, energy_density, gamma_pressure, mass, nu,
     n_stars = r.shape[0]
     with np.errstate(all="ignore"):
         # element midpoints (coefficients, midpoint rule)
-        mid = {name: 0.5 * (a[:, 1:] + a[:, :-1]) for name, a in
-               (("r", r), ("p", pressure), ("e", energy_density), ("g", gamma_pressure), ("m", mass), ("nu", nu))}
+        arrays = (("r", r), ("p", pressure), ("e", energy_density), ("g", gamma_pressure), ("m", mass), ("nu", nu))
+        if interleaved:
+            mid = {name: np.asarray(a, dtype=float)[:, 1::2] for name, a in arrays}
+            r = r[:, ::2]
+        else:
+            mid = {name: 0.5 * (a[:, 1:] + a[:, :-1]) for name, a in arrays}
         rm, pm, em, gm, mm, num = (mid[k] for k in ("r", "p", "e", "g", "m", "nu"))
         dr = np.diff(r, axis=1)
         e_lam = 1.0 / (1.0 - 2.0 * mm / rm)
@@ -146,12 +168,18 @@ def mode_eigenvalues(radius, pressure, energy_density, gamma_pressure, mass, nu,
         diag = s + np.append(s[1:], 0.0) - (q + np.append(q[1:], 0.0))
         mass_l = w + np.append(w[1:], 0.0)
         off = -s[1:]
+        t = -1 if junction_index is None else int(junction_index[j])
+        if 0 < t < k.size:  # rapid conversion: u_- (elements left of point t) and u_+ (right of it)
+            a, g = t - 1, junction_coupling[j]
+            diag = np.concatenate([diag[:a], [s[t - 1] - q[t - 1] + g, s[t] - q[t] + g], diag[a + 1:]])
+            mass_l = np.concatenate([mass_l[:a], [w[t - 1], w[t]], mass_l[a + 1:]])
+            off = np.concatenate([off[:a], [-g], off[a:]])
         if not (np.all(np.isfinite(diag)) and np.all(np.isfinite(off)) and np.all(mass_l > 0)):
             status[j] = 2
             continue
         scale = 1.0 / np.sqrt(mass_l)
         vals = eigh_tridiagonal(diag * scale**2, off * scale[1:] * scale[:-1], eigvals_only=True,
-                                select="i", select_range=(0, modes - 1))
+                                select="i", select_range=(0, modes - 1), tol=TRIDIAGONAL_TOLERANCE)
         omega2[j] = vals
     return omega2, status
 
@@ -200,12 +228,30 @@ def _refine(eos: EquationOfState, prof, j_rows: np.ndarray, subdivisions: int, g
             gp = gamma1 * pp
         M, R = m[rows, last], r[rows, last]
         nu = np.log(1.0 - 2.0 * M / R)[:, None] - 2.0 * hh
-    return rr, pp, ee, gp, mm, nu
+    return rr, pp, ee, gp, mm, nu, hh
+
+
+def junction_coupling(r_t, m_t, p_t, eps_out, delta_eps, nu_t):
+    """1/kappa of the rapid-conversion interface term at an interior density jump (geometric units).
+
+    Pereira, Flores & Lugones (2018, ApJ 860, 12; from memory), rapid conversion: Delta p continuous and
+    [xi] = (Delta p / r) [1 / p'], xi = Delta r / r, [f] = f(r_t+) - f(r_t-).  With u = r^3 e^(-nu/2) xi
+    and the flux P u' = -e^(lambda/2 + nu) Delta p (continuous), [u] = kappa P u' with
+    kappa = -r^2 e^(-(lambda + 3 nu)/2) [1/p'] > 0 (p' = (eps + p) dh/dr, steeper on the dense side);
+    the weak form gains [u][v]/kappa.  Slow conversion (xi and Delta p continuous) is the plain weak
+    form with u continuous.
+    """
+    with np.errstate(all="ignore"):  # rows without a core (r_t = 0) are not used
+        e_lam = 1.0 / (1.0 - 2.0 * m_t / r_t)
+        dh_dr = -(m_t + FOUR_PI * r_t**3 * p_t) / (r_t * (r_t - 2.0 * m_t))
+        inv_dp = 1.0 / ((eps_out + p_t) * dh_dr) - 1.0 / ((eps_out + delta_eps + p_t) * dh_dr)
+        kappa = -r_t**2 * np.exp(-0.5 * (np.log(e_lam) + 3.0 * nu_t)) * inv_dp
+        return 1.0 / kappa
 
 
 def radial_modes_of_eos(eos: EquationOfState, central_enthalpy, *, modes: int = 3, gamma1: float | None = None,
-                        control: StepControl = DEFAULT_STEPS, subdivisions: int = DEFAULT_SUBDIVISIONS,
-                        chunk: int = 256) -> RadialModes:
+                        junction: str = "rapid", control: StepControl = DEFAULT_STEPS,
+                        subdivisions: int = DEFAULT_SUBDIVISIONS, chunk: int = 256) -> RadialModes:
     """Radial modes of the stars with the given central log-enthalpies (geometric inputs).
 
     Parameters
@@ -217,6 +263,9 @@ def radial_modes_of_eos(eos: EquationOfState, central_enthalpy, *, modes: int = 
     gamma1 : float, optional
         Constant adiabatic index; None (default) takes the equilibrium
         Gamma_1 = (eps + p) c_s^2 / p of the EOS itself.
+    junction : {"rapid", "slow"}
+        Conditions at an interior density jump (Pereira, Flores & Lugones 2018): rapid conversion
+        (Delta p continuous, xi jumps; default) or slow (xi and Delta p continuous).
     control : StepControl
         Solver control of the background (as in the sweep).
     subdivisions : int
@@ -234,15 +283,27 @@ def radial_modes_of_eos(eos: EquationOfState, central_enthalpy, *, modes: int = 
         st = np.zeros(h_c[sel].size, dtype=np.int8)
         st[np.asarray(prof.status) != 0] = 1
         jumps = getattr(eos, "interior_jumps", None)
-        if jumps is not None:
-            inside = np.any(np.asarray(jumps.h).reshape(np.shape(jumps.h)[0], -1) < h_c[sel][None, :], axis=0)
-            st[(st == 0) & inside] = 4
+        if jumps is not None and np.size(jumps.h) > 1:  # one transition per EOS (README: limitations)
+            st[st == 0] = 4
         good = np.flatnonzero(st == 0)
         res = np.full((h_c[sel].size, modes), np.nan)
         if good.size:
             fine = []
             for k in (subdivisions, 2 * subdivisions):
-                w2, s2 = mode_eigenvalues(*_refine(eos, prof, good, k, gamma1), modes)
+                # 2k points per interval: the odd ones are the midpoints of the k elements
+                rr, pp, ee, gp, mm, nu, hh = _refine(eos, prof, good, 2 * k, gamma1)
+                index = coupling = None
+                if jumps is not None and junction == "rapid":
+                    h_t = float(np.ravel(jumps.h)[0])
+                    at = hh == h_t
+                    index = np.where(at.any(axis=1), np.argmax(at, axis=1), -1)
+                    rows = np.arange(good.size)
+                    col = np.maximum(index, 0)
+                    coupling = junction_coupling(rr[rows, col], mm[rows, col], pp[rows, col], ee[rows, col],
+                                                 float(np.ravel(jumps.delta_eps)[0]), nu[rows, col])
+                w2, s2 = mode_eigenvalues(rr, pp, ee, gp, mm, nu, modes,
+                                          None if index is None else np.where(index >= 0, index // 2, -1),
+                                          coupling, interleaved=True)
                 fine.append(w2)
                 st[good] = np.where(st[good] == 0, s2, st[good])
             # O(h^2) error: Richardson extrapolation
@@ -256,7 +317,8 @@ def radial_modes_of_eos(eos: EquationOfState, central_enthalpy, *, modes: int = 
 
 
 def radial_modes(eos: EquationOfState, *, central_density=None, central_pressure=None, modes: int = 3,
-                 gamma1: float | None = None, control: StepControl = DEFAULT_STEPS) -> RadialModes:
+                 gamma1: float | None = None, junction: str = "rapid",
+                 control: StepControl = DEFAULT_STEPS) -> RadialModes:
     """Radial modes of stars chosen by central density (g/cm^3) or pressure (dyn/cm^2), or Quantities.
 
     Exactly one of ``central_density`` and ``central_pressure``; see :func:`radial_modes_of_eos`.
@@ -266,12 +328,13 @@ def radial_modes(eos: EquationOfState, *, central_density=None, central_pressure
     quantity = "central_density" if central_density is not None else "central_pressure"
     values = central_density if central_density is not None else central_pressure
     h = _central_enthalpy(eos, quantity, np.atleast_1d(values) if not units.is_quantity(values) else values)
-    return radial_modes_of_eos(eos, h, modes=modes, gamma1=gamma1, control=control)
+    return radial_modes_of_eos(eos, h, modes=modes, gamma1=gamma1, junction=junction, control=control)
 
 
 def radial_columns(eos: EquationOfState, central_enthalpy, modes: int, *, gamma1: float | None = None,
-                   control: StepControl = DEFAULT_STEPS) -> dict[str, np.ndarray]:
+                   junction: str = "rapid", control: StepControl = DEFAULT_STEPS) -> dict[str, np.ndarray]:
     """The run-file columns of ``schema.RADIAL_MODE_DATASETS`` for a chunk of stars."""
-    res = radial_modes_of_eos(eos, central_enthalpy, modes=modes, gamma1=gamma1, control=control)
+    res = radial_modes_of_eos(eos, central_enthalpy, modes=modes, gamma1=gamma1, junction=junction,
+                              control=control)
     return {"radial_omega_squared": res.omega_squared, "radial_frequency": res.frequency,
             "radial_stable": res.stable, "radial_status": res.status}

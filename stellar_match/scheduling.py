@@ -126,7 +126,7 @@ def run_task(work: Work, task: Task) -> dict[str, np.ndarray]:
         if getattr(config, "radial_modes", 0):  # radial oscillation modes (issue 12)
             from .radial_modes import radial_columns
             cols |= radial_columns(eos, h, config.radial_modes, gamma1=config.radial_adiabatic_index,
-                                   control=control)
+                                   junction=config.radial_junction, control=control)
         return cols
     spec = config.ensembles[task.block]
     return solve_members(spec, task.start, task.stop, config.axis.quantity, values, control,

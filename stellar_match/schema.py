@@ -84,7 +84,7 @@ RADIAL_STATUS: dict[int, str] = {
     1: "the star itself has a non-zero star_status",
     2: "eigenproblem not finite",
     3: "too few grid points for the modes asked",
-    4: "interior density jump: junction conditions not implemented",
+    4: "more than one interior density jump (one transition per EOS is supported)",
 }
 #: Which of them are stars x modes.
 RADIAL_MODE_2D = ("radial_omega_squared", "radial_frequency")
