@@ -698,6 +698,29 @@ def _radial_turning_point():
     return f"{abs(root - ln_max):.1e}"
 
 
+@row("radial modes across a density jump (Γ = 2 polytrope + phase transition): ω0², rapid and slow",
+     "Pereira, Flores & Lugones 2018 conditions; solve_ivp shooting (Gondek et al. 1997 system)", "3e-4")
+def _radial_junctions():
+    import warnings
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+    from reference_solutions import radial_mode_reference
+
+    from stellar_match import radial_modes as rmod
+    hybrid = sm.phase_transition("hybrid", sm.polytrope("p", 1e5, 2.0), 1.0e35, 3.0e14, 1.0)
+    h = sm.eos.central_enthalpy(hybrid, "central_pressure", [3e35])
+    out = []
+    for junction in ("rapid", "slow"):
+        w = rmod.radial_modes_of_eos(hybrid, h, modes=1, junction=junction).omega_squared[0, 0]
+        w /= sm.units.SPEED_OF_LIGHT_KM_S**2
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            ref = radial_mode_reference(hybrid, float(h[0]), (0.97 * w, 1.03 * w), junction=junction,
+                                        rtol=1e-8, surface_fraction=1e-8)
+        out.append(f"{rel(w, ref):.1e} ({junction})")
+    return ", ".join(out)
+
+
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--list", action="store_true", help="print the case of every row and stop")
