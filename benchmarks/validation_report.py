@@ -726,6 +726,57 @@ def _crust():
             f"{rel(a['crust_inertia_fraction'], frac):.1e} (thickness {a['crust_thickness']:.3f} km, "
             f"ΔI/I = {a['crust_inertia_fraction']:.4f})")
 
+# --- radial oscillation modes (issue 12, section 3) ---
+@row("radial modes: Newtonian homogeneous sphere, constant Γ1 = 5/3, 2, 3: ω0²",
+     "classical (3Γ1 - 4) 4πGρ/3 (from memory)", "1e-4")
+def _radial_homogeneous():
+    from stellar_match import radial_modes as rmod
+    rho = 1e12
+    eos = sm.incompressible("u", rho)
+    worst = 0.0
+    for gamma1 in (5.0 / 3.0, 2.0, 3.0):
+        res = rmod.radial_modes_of_eos(eos, np.array([1e-6]), modes=1, gamma1=gamma1)
+        exact = (3 * gamma1 - 4) * 4 * np.pi * sm.units.GRAVITATIONAL_CONSTANT_SI * 1e3 * rho / 3
+        worst = max(worst, rel(res.omega_squared[0, 0], exact))
+    return f"{worst:.1e}"
+
+
+@row("radial modes: ω0² = 0 at the SLy maximum-mass star (equilibrium Γ1), in ln ρ_c",
+     "turning-point theorem (Harrison et al. 1965, from memory); sweep's refined maximum", "1e-4")
+def _radial_turning_point():
+    from scipy.optimize import brentq
+
+    from stellar_match import radial_modes as rmod
+    eos = sm.read_piecewise_polytrope("sly", 34.384, [3.005, 2.988, 2.851])
+    seq = sm.sweep_eos(eos, "central_density", np.geomspace(1.2e15, 3e15, 12))
+    ln_max = np.log(seq.summary["max_mass_central_density"])
+    root = brentq(lambda x: rmod.radial_modes(eos, central_density=np.exp(x), modes=1).omega_squared[0, 0],
+                  ln_max - 0.05, ln_max + 0.05, xtol=1e-8)
+    return f"{abs(root - ln_max):.1e}"
+
+
+@row("radial modes across a density jump (Γ = 2 polytrope + phase transition): ω0², rapid and slow",
+     "Pereira, Flores & Lugones 2018 conditions; solve_ivp shooting (Gondek et al. 1997 system)", "3e-4")
+def _radial_junctions():
+    import warnings
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+    from reference_solutions import radial_mode_reference
+
+    from stellar_match import radial_modes as rmod
+    hybrid = sm.phase_transition("hybrid", sm.polytrope("p", 1e5, 2.0), 1.0e35, 3.0e14, 1.0)
+    h = sm.eos.central_enthalpy(hybrid, "central_pressure", [3e35])
+    out = []
+    for junction in ("rapid", "slow"):
+        w = rmod.radial_modes_of_eos(hybrid, h, modes=1, junction=junction).omega_squared[0, 0]
+        w /= sm.units.SPEED_OF_LIGHT_KM_S**2
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)
+            ref = radial_mode_reference(hybrid, float(h[0]), (0.97 * w, 1.03 * w), junction=junction,
+                                        rtol=1e-8, surface_fraction=1e-8)
+        out.append(f"{rel(w, ref):.1e} ({junction})")
+    return ", ".join(out)
+
 
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])

@@ -44,6 +44,8 @@ from .eos import (
 )
 from .errors import ConfigError, InputError, RunFileError, TableError
 from .inference import EOSLikelihood
+from .radial_modes import RadialModes  # radial modes (issue 12)
+from .radial_modes import radial_modes as solve_radial_modes  # the module keeps the name radial_modes
 from .runfile import RunFile, read_run
 from .schema import STAR_DATASETS
 from .scoring import Scores, read_scores, score_runs, write_scores
@@ -107,5 +109,7 @@ __all__ = [
     "InteriorProfiles",
     "run_config",
     "solve_stars",
+    "solve_radial_modes",
+    "RadialModes",
     "sweep_eos",
 ]

@@ -33,6 +33,7 @@ import numpy as np
 from . import __version__
 from .errors import InputError
 from .runfile import read_run
+from .schema import RADIAL_STATUS as MODE_STATUS
 from .schema import STAR_STATUS
 from .sequence import interpolate_on_stable_branch
 
@@ -151,6 +152,19 @@ def summary_table(run) -> str:
         for code in np.unique(codes[codes != 0]):
             notes.append(f"  {n}: {int((codes == code).sum())} of {codes.size} stars NaN, star_status {code}: "
                          f"{STAR_STATUS.get(int(code), 'unknown')}")
+    for n, seq in run.eos.items():  # radial modes (issue 12): where omega_0^2 > 0 and the turning points disagree
+        if "radial_stable" not in seq.columns:
+            continue
+        rstat = np.asarray(seq.columns["radial_status"], dtype=int)
+        radial = np.asarray(seq.columns["radial_stable"], dtype=bool)
+        turning = np.asarray(seq.stable, dtype=bool)
+        differ = np.flatnonzero((rstat == 0) & (radial != turning))
+        if differ.size:
+            shown = ", ".join(str(int(i)) for i in differ[:10]) + (" ..." if differ.size > 10 else "")
+            notes.append(f"  {n}: {differ.size} stars where stable and radial_stable disagree (stars {shown})")
+        for code in np.unique(rstat[rstat != 0]):
+            notes.append(f"  {n}: {int((rstat == code).sum())} of {rstat.size} stars without radial modes, "
+                         f"radial_status {code}: {MODE_STATUS.get(int(code), 'unknown')}")
     for name, ens in run.ensembles.items():
         status = np.asarray(ens["status"])
         mm = np.asarray(ens["max_mass"])

@@ -192,6 +192,11 @@ class SweepConfig:
     binaries: list[tuple[float, float]] = field(default_factory=list)
     ensembles: list = field(default_factory=list)
     output: OutputOptions = field(default_factory=OutputOptions)
+    # --- radial oscillation modes (issue 12, section 3) ---
+    #: modes per star (0: off); constant Gamma_1 or None (the EOS's equilibrium index); junction conditions
+    radial_modes: int = 0
+    radial_adiabatic_index: float | None = None
+    radial_junction: str = "rapid"
 
     def __repr__(self) -> str:
         # not the config text and the axis values: those are what the file says
@@ -217,6 +222,32 @@ def read_text_file(path: Path, what: str) -> str:
         raise ConfigError(f"{what} file not found", source=str(path)) from None
     except (OSError, UnicodeDecodeError) as exc:
         raise ConfigError(f"cannot read {what} file ({exc})", source=str(path)) from None
+
+
+# --- radial oscillation modes (issue 12, section 3) ---
+RADIAL_KEYS = ("radial_modes", "radial_adiabatic_index", "radial_junction")
+RADIAL_JUNCTIONS = ("rapid", "slow")
+
+
+def _radial_modes(sweep: dict, source: str) -> dict:
+    """The [sweep] keys of radial modes, each bad value one ConfigError naming its key."""
+    from .radial_modes import MAX_MODES
+
+    n = sweep.get("radial_modes", 0)
+    if isinstance(n, bool) or not isinstance(n, int) or not 0 <= n <= MAX_MODES:
+        raise _fail(source, "sweep.radial_modes", f"needs a whole number of modes from 0 (off) to {MAX_MODES}, "
+                    f"got {n!r}")
+    gamma = sweep.get("radial_adiabatic_index", "equilibrium")
+    if gamma == "equilibrium":
+        gamma = None
+    elif isinstance(gamma, str) or isinstance(gamma, bool):
+        raise _fail(source, "sweep.radial_adiabatic_index", f"needs \"equilibrium\" or a number > 0, got {gamma!r}")
+    else:
+        gamma = _number(gamma, source, "sweep.radial_adiabatic_index", positive=True)
+    junction = sweep.get("radial_junction", "rapid")
+    if junction not in RADIAL_JUNCTIONS:
+        raise _fail(source, "sweep.radial_junction", f"needs \"rapid\" or \"slow\", got {junction!r}")
+    return {"radial_modes": n, "radial_adiabatic_index": gamma, "radial_junction": junction}
 
 
 def _fail(source: str, key: str, message: str) -> ConfigError:
@@ -317,7 +348,8 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
     if "sweep" not in data:
         raise _fail(source, "sweep", "missing [sweep] table")
     sweep = _table(data["sweep"], source, "sweep")
-    _no_unknown(sweep, {"central_density", "central_pressure", "target_masses", "binaries"}, source, "sweep")
+    _no_unknown(sweep, {"central_density", "central_pressure", "target_masses", "binaries", *RADIAL_KEYS},
+                source, "sweep")
     axis = _axis(sweep, source)
     targets: list[float] = []
     if "target_masses" in sweep:
@@ -338,6 +370,8 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
             (_number(a, source, "sweep.binaries", positive=True), _number(b, source, "sweep.binaries", positive=True))
             for a, b in bl
         ]
+
+    radial = _radial_modes(sweep, source)
 
     solver = SolverOptions()
     if "solver" in data:
@@ -376,6 +410,9 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
     from .ensemble import parse_ensemble
 
     ensembles = [parse_ensemble(i, b, source, base_dir) for i, b in enumerate(ens_blocks)]
+    if ensembles and radial["radial_modes"]:
+        raise _fail(source, "sweep.radial_modes", "radial modes are not computed for [[ensemble]] blocks; "
+                    "sweep the members you need as [[eos]] blocks")
     if ensembles and axis.values.size < 5:
         raise _fail(source, f"sweep.{axis.quantity}", "ensembles need at least 5 central values per member")
     _check_sizes(specs, ensembles, axis, solver, source)
@@ -404,4 +441,5 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
         binaries=binaries,
         ensembles=ensembles,
         output=_output(data.get("output", {}), source),
+        **radial,
     )

@@ -60,6 +60,7 @@ from .schema import (
     MEMBER_SUMMARIES,
     OPTIONAL_STAR_DATASETS,
     PRIOR_WEIGHT,
+    RADIAL_MODE_2D,
     STAR_DATASETS,
     STAR_STATUS,
     SWEEP_UNITS,
@@ -159,6 +160,7 @@ class RunFileWriter:
     def __init__(self, path: str | Path, *, config_text: str, force: bool = False,
                  compression: str | None = None, compression_level: int = 4) -> None:
         self.path = Path(path)
+        self._pending_2d: dict[tuple[str, str], tuple[str, str]] = {}  # radial modes, see start_eos
         if compression not in (None, "gzip"):
             raise ValueError(f"unknown compression {compression!r}")
         self._filters = ({"compression": "gzip", "compression_opts": int(compression_level), "shuffle": True}
@@ -215,6 +217,9 @@ class RunFileWriter:
             g.attrs["table_sha256"] = table_sha256
         g.attrs["star_status_meaning"] = json.dumps({str(k): v for k, v in STAR_STATUS.items()})
         for col, (unit, meaning) in columns.items():
+            if col in RADIAL_MODE_2D:  # stars x modes: created at the first chunk, which knows the modes
+                self._pending_2d[(name, col)] = (unit, meaning)
+                continue
             d = g.create_dataset(col, shape=(0,), maxshape=(None,), dtype=dataset_dtype(col), chunks=(4096,),
                                  **self._filters)
             d.attrs["unit"] = unit
@@ -225,9 +230,15 @@ class RunFileWriter:
         """Append one chunk of stars (every per-star column but ``stable``)."""
         g = self._file["eos"][name]
         for col, values in chunk.items():
+            pending = self._pending_2d.pop((name, col), None)
+            if pending is not None:
+                d = g.create_dataset(col, shape=(0, values.shape[1]), maxshape=(None, values.shape[1]),
+                                     dtype=float, chunks=(max(1, 4096 // values.shape[1]), values.shape[1]),
+                                     **self._filters)
+                d.attrs["unit"], d.attrs["description"] = pending
             d = g[col]
             n = d.shape[0]
-            d.resize((n + len(values),))
+            d.resize((n + len(values),) + d.shape[1:])
             d[n:] = values
         self._flush()
 
@@ -242,6 +253,7 @@ class RunFileWriter:
         for k, v in summary.items():
             g.attrs[k] = v
         _attach_scales(g, ["star"])
+        _attach_mode_scale(g)
         for sub, datasets in (groups or {}).items():
             sg = g.create_group(sub)
             for k, v in datasets.get("attrs", {}).items():
@@ -337,6 +349,18 @@ class RunFileWriter:
 
 #: The dimension scale of each subgroup of an ``/eos/<name>`` group.
 _SUBGROUP_DIMENSION = {"targets": "target", "binaries": "binary"}
+
+
+def _attach_mode_scale(g: h5py.Group) -> None:
+    """The ``mode`` dimension scale of the stars x modes datasets of radial modes (issue 12), if any."""
+    two_d = [g[k] for k in RADIAL_MODE_2D if k in g]
+    if not two_d:
+        return
+    scale = g.create_dataset("mode", data=np.arange(two_d[0].shape[1], dtype=np.int32))
+    scale.make_scale("mode")
+    scale.attrs["description"] = DIMENSIONS["mode"]
+    for d in two_d:
+        d.dims[1].attach_scale(scale)
 
 
 def _attach_scales(g: h5py.Group, names: list[str], sizes: dict[str, int] | None = None) -> None:

@@ -33,6 +33,8 @@ from .schema import (
     FORMAT_VERSION,
     MEMBER_SUMMARIES,
     OPTIONAL_STAR_DATASETS,
+    RADIAL_MODE_2D,
+    RADIAL_MODE_DATASETS,
     READABLE_VERSIONS,
     STAR_DATASETS,
     SUMMARY_ATTRIBUTES,
@@ -294,8 +296,15 @@ def _check_eos_group(g, where: str, version: int) -> None:
         sub = f"{where}/{name}"
         if isinstance(obj, h5py.Dataset):
             if name in DIMENSIONS:
-                if name != "star":
+                if name not in ("star", "mode"):  # mode: radial modes (issue 12)
                     raise _Problem(sub, f"a {name!r} dimension scale belongs to a subgroup")
+            # --- radial oscillation modes (issue 12, section 3): stars x modes, or per star ---
+            elif name in RADIAL_MODE_DATASETS:
+                two_d = name in RADIAL_MODE_2D
+                d = _dataset(g, name, sub, kind="fiub", ndim=2 if two_d else 1, unit=RADIAL_MODE_DATASETS[name][0],
+                             version=version)
+                if d.shape[0] != shape[0]:
+                    raise _Problem(sub, f"has {d.shape[0]} rows for {shape[0]} stars")
             elif name in OPTIONAL_STAR_DATASETS:
                 d = _dataset(g, name, sub, kind="f", ndim=1, unit=OPTIONAL_STAR_DATASETS[name][0], shape=shape,
                              version=version)

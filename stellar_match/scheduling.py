@@ -122,7 +122,12 @@ def run_task(work: Work, task: Task) -> dict[str, np.ndarray]:
     if task.section == "eos":
         eos = work.eos[task.block]
         h = central_enthalpy(eos, config.axis.quantity, values[task.start : task.stop])
-        return star_columns(solve_interiors(eos, h, control=control))
+        cols = star_columns(solve_interiors(eos, h, control=control))
+        if getattr(config, "radial_modes", 0):  # radial oscillation modes (issue 12)
+            from .radial_modes import radial_columns
+            cols |= radial_columns(eos, h, config.radial_modes, gamma1=config.radial_adiabatic_index,
+                                   junction=config.radial_junction, control=control)
+        return cols
     spec = config.ensembles[task.block]
     return solve_members(spec, task.start, task.stop, config.axis.quantity, values, control,
                          refine=config.solver.ensemble_maxima == "refined")

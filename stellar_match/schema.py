@@ -36,6 +36,7 @@ __all__ = [
     "DATASET_SINCE_VERSION", "MAX_NAME_LENGTH", "group_name_problem", "DIMENSIONS", "LEGACY_UNITS",
     "SWEEP_UNITS", "accepted_units", "DIMENSIONS_SINCE_VERSION", "MEMBER_PARAMETER_UNITS", "PRIOR_WEIGHT",
     "OPTIONAL_STAR_DATASETS", "CORE_DATASETS", "CRUST_DATASETS", "optional_star_datasets",
+    "RADIAL_MODE_DATASETS", "RADIAL_MODE_2D", "RADIAL_STATUS",
 ]
 
 FORMAT = "stellar_match.run"
@@ -89,6 +90,26 @@ def optional_star_datasets(eos) -> tuple[str, ...]:
     crust = CRUST_DATASETS if getattr(eos, "crust_core_enthalpy", None) is not None else ()
     return core + crust
 
+
+# --- radial oscillation modes (issue 12, section 3) ---
+#: Per-star datasets written only when ``[sweep] radial_modes = N`` asks for them (any format version):
+#: name -> (unit, meaning).  The first two are 2-D (stars x modes, dimension scales ``star`` and ``mode``).
+RADIAL_MODE_DATASETS: dict[str, tuple[str, str]] = {
+    "radial_omega_squared": ("rad2 / s2", "omega^2 of the radial modes, fundamental first (NaN: not computed)"),
+    "radial_frequency": ("kHz", "omega / 2 pi of the radial modes (NaN where omega^2 < 0 or not computed)"),
+    "radial_stable": ("", "omega_0^2 > 0 (radial_modes); compare with the turning-point flag stable"),
+    "radial_status": ("", "0 = modes computed; else why not (attribute radial_status_meaning)"),
+}
+#: Codes of radial_status (every non-zero code comes with NaN modes).
+RADIAL_STATUS: dict[int, str] = {
+    0: "ok",
+    1: "the star itself has a non-zero star_status",
+    2: "eigenproblem not finite",
+    3: "too few grid points for the modes asked",
+    4: "more than one interior density jump (one transition per EOS is supported)",
+}
+#: Which of them are stars x modes.
+RADIAL_MODE_2D = ("radial_omega_squared", "radial_frequency")
 
 #: Per-star status codes (dataset ``star_status``); every non-zero code comes with NaN physics columns.
 STAR_STATUS: dict[int, str] = {
@@ -155,7 +176,8 @@ MEMBER_STATUS: dict[int, str] = {
 
 def dataset_dtype(name: str):
     """numpy dtype of a per-star or per-member dataset."""
-    return {"stable": bool, "causal": bool, "status": np.int8, "star_status": np.int8}.get(name, float)
+    return {"stable": bool, "causal": bool, "status": np.int8, "star_status": np.int8,
+            "radial_stable": bool, "radial_status": np.int8}.get(name, float)
 
 
 #: Per-star datasets that are not in every readable version: name -> first
@@ -210,6 +232,7 @@ DIMENSIONS: dict[str, str] = {
     "member": "index of the ensemble member",
     "target": "index of the requested mass",
     "binary": "index of the requested pair",
+    "mode": "radial mode number (0: fundamental)",  # radial modes (issue 12)
 }
 #: Dimension scales are written from this format version on (and required in its files).
 DIMENSIONS_SINCE_VERSION = 3

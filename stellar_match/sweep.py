@@ -23,7 +23,14 @@ from .eos import EquationOfState, central_enthalpy
 from .errors import ConfigError, InputError, RunFileError, StorageError
 from .exterior import star_columns
 from .runfile import RunFileWriter
-from .schema import BINARY_DATASETS, OPTIONAL_STAR_DATASETS, STAR_DATASETS, TARGET_DATASETS, optional_star_datasets
+from .schema import (
+    BINARY_DATASETS,
+    OPTIONAL_STAR_DATASETS,
+    RADIAL_MODE_DATASETS,
+    STAR_DATASETS,
+    TARGET_DATASETS,
+    optional_star_datasets,
+)
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
 from .structure import DEFAULT_STEPS, StepControl, solve_interiors
 
@@ -165,13 +172,15 @@ _KEPT = ("mass", "radius", "central_density", "central_pressure")
 
 
 def write_sequence(eos: EquationOfState, h_all: np.ndarray, chunks, sink, *, control: StepControl = DEFAULT_STEPS,
-                   target_masses=(), binaries=()) -> None:
+                   target_masses=(), binaries=(), radial_modes: int = 0) -> None:
     """Hand an EOS's star chunks to ``sink``, then analyse and finish the sequence.
 
     ``chunks`` yields the per-star columns in sweep order; only four columns
     of the whole sequence are kept in memory for the analysis.
     """
     columns = dict(STAR_DATASETS) | {k: OPTIONAL_STAR_DATASETS[k] for k in optional_star_datasets(eos)}
+    if radial_modes:  # radial oscillation modes (issue 12), computed with the stars of each chunk
+        columns |= RADIAL_MODE_DATASETS
     sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, columns)
     kept = {k: np.empty(h_all.size) for k in _KEPT}
     start = 0
@@ -437,7 +446,8 @@ def _assemble(config: SweepConfig, built, tasks, store, out: Path) -> Path:
             h_all = central_enthalpy(eos, config.axis.quantity, config.axis.values)
             parts = (store.load(t) for t in tasks if t.section == "eos" and t.block == spec.index)
             write_sequence(eos, h_all, parts, writer, control=control,
-                           target_masses=config.target_masses, binaries=config.binaries)
+                           target_masses=config.target_masses, binaries=config.binaries,
+                           radial_modes=config.radial_modes)
         for ens in config.ensembles:
             parts = [t for t in tasks if t.section == "ensemble" and t.block == ens.index]
             writer.write_ensemble(ens, config.axis, ((t, store.load(t)) for t in parts))

@@ -271,3 +271,22 @@ def quantity_table(columns: dict, unit_of: dict, *, descriptions: dict | None = 
         else:
             table[name] = Column(values, description=text)
     return table
+
+
+# --- radial oscillation modes (issue 12, section 3) ---
+#: Unit of radial_omega_squared in run files (astropy parses "rad2 / s2").
+ANGULAR_FREQUENCY_SQUARED_UNIT = "rad2 / s2"
+#: Unit of radial_frequency (nu = omega / 2 pi).
+FREQUENCY_UNIT = "kHz"
+
+
+def angular_frequency_squared_from_geometric(omega2_geom):
+    """omega^2 in (rad/s)^2 from geometric units (km^-2, c = 1): times c^2 in (km/s)^2."""
+    return np.asarray(omega2_geom, dtype=float) * SPEED_OF_LIGHT_KM_S**2
+
+
+def frequency_khz_from_angular_squared(omega2_s2):
+    """nu = sqrt(omega^2) / (2 pi) in kHz from omega^2 in (rad/s)^2; NaN where omega^2 < 0."""
+    w2 = np.asarray(omega2_s2, dtype=float)
+    with np.errstate(invalid="ignore"):
+        return np.where(w2 >= 0, np.sqrt(np.where(w2 >= 0, w2, np.nan)), np.nan) / (2.0 * np.pi) / 1e3

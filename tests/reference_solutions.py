@@ -302,3 +302,79 @@ def crust_in_radius(eos, h_c: float, crust_core_density_geom: float, rtol: float
     R = sol.t_events[1][0]
     _, M, _, _, vp_R = sol.y_events[1][0]
     return float(R), float(M), float(r_cc), float(m_cc), float(1.0 - vp_cc / vp_R)
+
+def radial_mode_reference(eos, h_c: float, bracket: tuple[float, float], junction: str = "rapid",
+                          rtol: float = 1e-10, surface_fraction: float = 1e-9) -> float:
+    """omega^2 (km^-2) of the radial mode in ``bracket`` by shooting, independent of the product's solver.
+
+    The first-order system of Gondek, Haensel & Zdunik (1997, A&A 325, 217; from memory) in
+    xi = Delta r / r and Delta p, integrated in r with solve_ivp (DOP853) together with the TOV
+    background (p, m, nu):
+
+        dxi/dr = -(3 xi + Delta p / (Gamma_1 p)) / r - p' xi / (eps + p),
+        dDelta p/dr = xi [omega^2 e^(lambda - nu) (eps + p) r - 4 p' + p'^2 r / (eps + p)
+                          - 8 pi e^lambda (eps + p) p r] + Delta p [p' / (eps + p) - 4 pi (eps + p) r e^lambda],
+
+    Gamma_1 p = (eps + p) c_s^2 (equilibrium), from xi = 1, Delta p = -3 Gamma_1 p at the centre to
+    p = ``surface_fraction`` p_c, where Delta p / p_c must vanish (brentq on omega^2).  At an interior
+    jump p = p_t (Pereira, Flores & Lugones 2018, ApJ 860, 12; from memory) Delta p is continuous and
+    xi too (slow), or xi jumps by (Delta p / r)(1/p'_+ - 1/p'_-) (rapid).  nu starts at 0; the match
+    nu(R) = ln(1 - 2M/R) rescales omega^2 by exp(ln(1 - 2M/R) - nu(R)) afterwards.
+    Only the EOS's p, eps and c_s^2 are shared with the product.
+    """
+    from scipy.optimize import brentq
+
+    jumps = getattr(eos, "interior_jumps", None)
+    p_t = float(jumps.pressure[0]) if jumps is not None else -1.0
+    p_c, e_c, _ = _state(eos, h_c)
+
+    def matter(p):
+        h = float(eos.enthalpy_of_pressure(np.array([max(p, 0.0)]))[0])
+        _, e, _ = _state(eos, h)
+        cs2 = float(eos.sound_speed_squared(np.array([max(h, 1e-300)]))[0])
+        return e, (e + p) * cs2
+
+    def rhs(r, s, sigma):
+        p, m, nu, xi, dp = s
+        e, gp = matter(p)
+        elam = 1 / (1 - 2 * m / r)
+        dpdr = -(e + p) * (m + 4 * np.pi * r**3 * p) / (r * (r - 2 * m))
+        dxi = -(3 * xi + dp / gp) / r - dpdr * xi / (e + p)
+        ddp = (xi * (sigma * elam * np.exp(-nu) * (e + p) * r - 4 * dpdr + dpdr**2 * r / (e + p)
+                     - 8 * np.pi * elam * (e + p) * p * r) + dp * (dpdr / (e + p) - 4 * np.pi * (e + p) * r * elam))
+        return [dpdr, 4 * np.pi * r * r * e, -2 * dpdr / (e + p), dxi, ddp]
+
+    def event(level):
+        def ev(r, s, sigma):
+            return s[0] - level
+        ev.terminal, ev.direction = True, -1
+        return ev
+
+    def shoot(sigma):
+        r0 = 1e-4
+        _, gp_c = matter(p_c)
+        s = [p_c - 2 * np.pi / 3 * (e_c + p_c) * (e_c + 3 * p_c) * r0**2, 4 * np.pi / 3 * e_c * r0**3, 0.0,
+             1.0, -3 * gp_c]
+        r = r0
+        if p_t > 0 and p_c > p_t:
+            leg = solve_ivp(rhs, (r, 1e4), s, args=(sigma,), method="DOP853", rtol=rtol, atol=1e-40,
+                            events=event(p_t))
+            r, s = leg.t_events[0][0], list(leg.y_events[0][0])
+            p, m, nu, xi, dp = s
+            e_out = _state(eos, float(jumps.h[0]))[1]
+            e_in = e_out + float(jumps.delta_eps[0])
+            g = (m + 4 * np.pi * r**3 * p) / (r * (r - 2 * m))
+            if junction == "rapid":
+                s[3] = xi + dp / r * (1 / (-(e_out + p) * g) - 1 / (-(e_in + p) * g))
+            s[0] = p_t * (1 - 1e-14)
+        leg = solve_ivp(rhs, (r, 1e4), s, args=(sigma,), method="DOP853", rtol=rtol, atol=1e-40,
+                        events=event(surface_fraction * p_c))
+        p, m, nu, xi, dp = leg.y_events[0][0]
+        return dp / p_c, leg.t_events[0][0], m, nu
+
+    a, b = bracket
+    # omega^2 e^(-c): first the background's nu(R) at a trial value, then the root in sigma
+    _, R, M, nu_R = shoot(a)
+    scale = np.exp(np.log(1 - 2 * M / R) - nu_R)  # omega^2 = sigma * scale
+    sigma = brentq(lambda x: shoot(x)[0], a / scale, b / scale, xtol=1e-14, rtol=1e-12)
+    return float(sigma * scale)

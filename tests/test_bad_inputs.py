@@ -335,6 +335,18 @@ CASES = [
     sweep_case("electrons_charge_zero", AXIS5 + ELECTRONS.format(
         extra="mu_e = 2.0\ncoulomb_correction = true\nnuclear_charge = 0"), "eos[0].nuclear_charge"),
     sweep_case("electrons_mu_e_missing", AXIS5 + ELECTRONS.format(extra=""), "eos[0].mu_e", "missing"),
+    # -- config: radial modes (issue 12, section 3) ------------------------------------------------
+    sweep_case("radial_modes_negative", AXIS5 + "radial_modes = -1\n" + SLY, "sweep.radial_modes"),
+    sweep_case("radial_modes_too_many", AXIS5 + "radial_modes = 11\n" + SLY, "sweep.radial_modes", "10"),
+    sweep_case("radial_modes_not_integer", AXIS5 + "radial_modes = 2.5\n" + SLY, "sweep.radial_modes"),
+    sweep_case("radial_modes_boolean", AXIS5 + "radial_modes = true\n" + SLY, "sweep.radial_modes"),
+    sweep_case("radial_adiabatic_index_word", AXIS5 + 'radial_adiabatic_index = "frozen"\n' + SLY,
+               "sweep.radial_adiabatic_index"),
+    sweep_case("radial_adiabatic_index_negative", AXIS5 + "radial_adiabatic_index = -1.0\n" + SLY,
+               "sweep.radial_adiabatic_index"),
+    sweep_case("radial_junction_unknown", AXIS5 + 'radial_junction = "fast"\n' + SLY, "sweep.radial_junction"),
+    sweep_case("radial_modes_with_ensemble", AXIS5 + "radial_modes = 2\n" + ENSEMBLE.format(name="e", count=4),
+               "sweep.radial_modes", "ensemble"),
     # -- table files ------------------------------------------------------------------
     sweep_case("table_is_a_folder", AXIS5 + TABLE_BLOCK.format(path="{folder}"), "eos[0].path", "is a folder"),
     sweep_case("table_is_dev_null", AXIS5 + TABLE_BLOCK.format(path="/dev/null"), "eos[0].path", "/dev/null"),
