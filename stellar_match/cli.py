@@ -162,6 +162,8 @@ def summary_table(run) -> str:
         if differ.size:
             shown = ", ".join(str(int(i)) for i in differ[:10]) + (" ..." if differ.size > 10 else "")
             notes.append(f"  {n}: {differ.size} stars where stable and radial_stable disagree (stars {shown})")
+        else:
+            notes.append(f"  {n}: radial modes of {int((rstat == 0).sum())} stars; stable and radial_stable agree")
         for code in np.unique(rstat[rstat != 0]):
             notes.append(f"  {n}: {int((rstat == code).sum())} of {rstat.size} stars without radial modes, "
                          f"radial_status {code}: {MODE_STATUS.get(int(code), 'unknown')}")
