@@ -467,18 +467,22 @@ def _same_bits():
 
 # --- response equations --------------------------------------------------------------------
 
-@row("SLy 0.6-2.0 Msun: k2, Λ, I", "solve_ivp DOP853 rtol 1e-11, r-form y and Hartle equations", "1e-5")
-def _sly_response():
-    eos = sly()
+def worst_response(cases) -> str:
+    """Worst relative error of k2, Lambda and I over (eos, h_c) cases against the r-form reference."""
     worst = {"k2": 0.0, "Λ": 0.0, "I": 0.0}
-    for rho in (4.3e14, 8.9e14, 1.6e15):
-        h = float(h_of(eos, [rho])[0])
+    for eos, h in cases:
         _, _, k2, lam, inertia = tidal_and_inertia_in_radius(eos, h)
         st = solve_interiors(eos, [h])
         worst["k2"] = max(worst["k2"], rel(st.love_number_k2, k2))
         worst["Λ"] = max(worst["Λ"], rel(st.tidal_deformability, lam))
         worst["I"] = max(worst["I"], rel(st.moment_of_inertia, inertia))
     return ", ".join(f"{v:.1e} ({k})" for k, v in worst.items())
+
+
+@row("SLy 0.6-2.0 Msun: k2, Λ, I", "solve_ivp DOP853 rtol 1e-11, r-form y and Hartle equations", "1e-5")
+def _sly_response():
+    eos = sly()
+    return worst_response([(eos, float(h_of(eos, [rho])[0])) for rho in (4.3e14, 8.9e14, 1.6e15)])
 
 
 @row("uniform density C = 0.3, table EOS: k2, Λ, I", "same reference", "1e-5")
@@ -488,14 +492,7 @@ def _uniform_and_table_response():
     cases = [(u, float(u.enthalpy_of_pressure(np.array([u.energy_density * (1 - s) / (3 * s - 1)]))[0]))]
     table = sm.from_table("t", SOFT_TABLE, SOFT_COLUMNS)
     cases.append((table, float(h_of(table, [1.2e15])[0])))
-    worst = {"k2": 0.0, "Λ": 0.0, "I": 0.0}
-    for eos, h in cases:
-        _, _, k2, lam, inertia = tidal_and_inertia_in_radius(eos, h)
-        st = solve_interiors(eos, [h])
-        worst["k2"] = max(worst["k2"], rel(st.love_number_k2, k2))
-        worst["Λ"] = max(worst["Λ"], rel(st.tidal_deformability, lam))
-        worst["I"] = max(worst["I"], rel(st.moment_of_inertia, inertia))
-    return ", ".join(f"{v:.1e} ({k})" for k, v in worst.items())
+    return worst_response(cases)
 
 
 @row("n = 1 polytrope, C = 2e-7: k2, I/(MR²)", "Hinderer 2008 (0.2599); textbook (2/3)(1 − 6/π²)", "1e-5")
