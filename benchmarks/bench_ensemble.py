@@ -107,7 +107,7 @@ def main(argv=None) -> dict:
         child_main(args.child[0], args.child[1], int(args.child[2]))
         return {}
     if args.quick:
-        args.members, args.stars, args.rss_members, args.rss_stars = 128, 20, [100, 300], 10
+        args.members, args.stars, args.rss_members, args.rss_stars = 48, 20, [40, 120], 10
 
     import numpy as np
 

@@ -17,8 +17,11 @@ distributed = pytest.importorskip("dask.distributed")
 
 from stellar_match import scheduling, sweep  # noqa: E402
 
-#: The longer config of the worker-death test: 24 member chunks, a few seconds on 2 workers.
-LONG_CONFIG = POOL_CONFIG.replace("count = 30", "count = 120")
+#: The longer config of the worker-death test: 24 member chunks, a few seconds on 2 workers
+#: (the cheap settings: the test is of the scheduling, not of accuracy).
+LONG_CONFIG = POOL_CONFIG.replace("count = 30", "count = 120").replace(
+    "member_chunk_size = 5\n", 'member_chunk_size = 5\ntolerance = 1e-4\nensemble_maxima = "vertex"\n')
+assert LONG_CONFIG.count("vertex") == 1
 
 
 @pytest.fixture(scope="module")
