@@ -208,6 +208,12 @@ ENVELOPE_GRADING = 0.4
 ENVELOPE_STEPS = 10
 #: Stars less compact than this are re-solved with a deeper envelope (see solve_interiors).
 LOW_COMPACTNESS = 0.006
+#: ... and whose envelope holds more than this share of the radius.  Near the surface hydrostatic
+#: equilibrium gives dh/dr ~ -C/R (C = GM/(Rc^2)), so the envelope below h_env is about h_env/C of
+#: R deep.  Measured with the defaults: puffed-up neutron stars (SLy, rho_c 5e13-1.8e14 g/cm^3)
+#: 0.8 and more; white dwarfs (electron_gas, 1e4-1e11 g/cm^3) 1e-5 to 8e-3, which the shallow
+#: grid already solves to tolerance (they used to be solved twice).
+ENVELOPE_SHARE = 0.05
 REDO_ENVELOPE_FRACTION = 1e-10
 #: ... and with every step length scaled by this (they are few; their envelopes are long).
 REDO_STEP_SCALE = 0.7
@@ -646,7 +652,8 @@ def solve_interiors(
     are taken, starts at min(control.envelope_density, ENVELOPE_FRACTION
     rho_c).  Stars that come out puffed up (GM/(Rc^2) < LOW_COMPACTNESS, the
     low-mass and unstable configurations near the minimum mass) keep much of
-    their radius there, so they are solved again, each on its own grid, with
+    their radius there (more than ENVELOPE_SHARE, estimated from h_env and
+    the compactness; white dwarfs do not), so they are solved again, with
     the envelope pushed down to REDO_ENVELOPE_FRACTION rho_c and steps scaled
     by REDO_STEP_SCALE.
 
@@ -700,7 +707,14 @@ def _solve(eos, central_enthalpy, control: StepControl, response: bool, record: 
                     for j, star in enumerate(sel):
                         nodes[star] = (again[0][0], again[0][1], j)
 
-        puffed = np.flatnonzero(~(y[1] * y[0] >= LOW_COMPACTNESS))  # m/r = v u; also NaN
+        compactness = y[1] * y[0]  # m/r = v u
+        rho_env = np.minimum(control.envelope_density, ENVELOPE_FRACTION * units.density_from_geometric(rho_c))
+        try:
+            h_env = eos.enthalpy_of_density(units.density_to_geometric(rho_env))
+        except InputError:  # incompressible: no envelope
+            h_env = np.zeros_like(h_c)
+        thin = (compactness > 0) & (h_env * (1.0 - 2.0 * compactness) < ENVELOPE_SHARE * compactness)
+        puffed = np.flatnonzero(~(compactness >= LOW_COMPACTNESS) & ~thin)  # also NaN
         if puffed.size:
             fraction[puffed] = REDO_ENVELOPE_FRACTION
             scale[puffed] = REDO_STEP_SCALE
