@@ -708,11 +708,7 @@ def _solve(eos, central_enthalpy, control: StepControl, response: bool, record: 
                         nodes[star] = (again[0][0], again[0][1], j)
 
         compactness = y[1] * y[0]  # m/r = v u
-        rho_env = np.minimum(control.envelope_density, ENVELOPE_FRACTION * units.density_from_geometric(rho_c))
-        try:
-            h_env = eos.enthalpy_of_density(units.density_to_geometric(rho_env))
-        except InputError:  # incompressible: no envelope
-            h_env = np.zeros_like(h_c)
+        _, h_env = _envelope_start(eos, control, fraction, rho_c)
         thin = (compactness > 0) & (h_env * (1.0 - 2.0 * compactness) < ENVELOPE_SHARE * compactness)
         puffed = np.flatnonzero(~(compactness >= LOW_COMPACTNESS) & ~thin)  # also NaN
         if puffed.size:
@@ -985,6 +981,20 @@ def _relative_error(err: np.ndarray) -> np.ndarray:
     return np.maximum(0.5 * eu, np.maximum(ev, ew) + 1.5 * eu)
 
 
+def _envelope_start(eos, control: StepControl, envelope_fraction, rho_c):
+    """Where each star's envelope begins: (rest-mass density in g/cm^3, log-enthalpy h_env).
+
+    At min(control.envelope_density, envelope_fraction rho_c); h_env = 0 for an
+    EOS without a density axis (incompressible: no envelope).
+    """
+    rho_env = np.minimum(control.envelope_density, envelope_fraction * units.density_from_geometric(rho_c))
+    try:
+        h_env = eos.enthalpy_of_density(units.density_to_geometric(rho_env))
+    except InputError:
+        h_env = np.zeros_like(rho_env)
+    return rho_env, h_env
+
+
 def _integrate(eos, h_c, control, response, envelope_fraction, record: bool = False):
     """Integrate every star from its centre to h = 0.
 
@@ -1055,11 +1065,7 @@ def _integrate(eos, h_c, control, response, envelope_fraction, record: bool = Fa
     density_scale = control.density_step * (eps_c + p_c) / deps_dh  # = step * c_s^2
     local = np.minimum(control.enthalpy_step, density_scale)
     startup_end = np.clip(local / control.startup_growth, x0, h_c - x0)
-    rho_env = np.minimum(control.envelope_density, envelope_fraction * units.density_from_geometric(rho_c))
-    try:
-        h_env = eos.enthalpy_of_density(units.density_to_geometric(rho_env))
-    except InputError:  # incompressible: no density axis
-        h_env = np.zeros_like(h_c)
+    rho_env, h_env = _envelope_start(eos, control, envelope_fraction, rho_c)
     if hasattr(eos, "stack"):  # an ensemble batch: every member has its own nodes
         always, density, breaks = _stacked_nodes(eos, control, h_c, rho_env)
     else:
