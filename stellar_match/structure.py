@@ -221,7 +221,7 @@ REDO_STEP_SCALE = 0.7
 #: by this.  The deep envelope brings error of its own, so 0.7 left about half of such stars (wide
 #: piecewise-polytrope priors, near their maxima) above tolerance for a third solve; each solve of a
 #: few stars costs as much as the first pass of the whole batch (per-step overhead), so one finer
-#: solve is cheaper than two (an ensemble chunk: 8.2 s -> 5.9 s, benchmarks/bench_ensemble.py).
+#: solve is cheaper than two (3000 wide-prior members: 271 s -> 96 s, benchmarks/bench_wide_prior.py).
 REFINE_STEP_SCALE = 0.5
 #: Steps off an interior density jump: each at most JUMP_GROWTH times the distance from the
 #: centre (scaled like the start-up), out to JUMP_REACH times the jump's distance (see _integrate).
