@@ -1,4 +1,4 @@
-"""Batched TOV structure solver in the log-enthalpy form.
+"""The TOV structure solver in the log-enthalpy form: one star at a time, adaptive steps.
 
 Equations
 ---------
@@ -21,16 +21,16 @@ where m_b is the baryon (rest) mass.  All are analytic at the centre; the
 integration starts a small distance off it with the series of Lindblom
 (1992, eqs. 7-8), re-derived for u, v, w in :func:`central_series`.
 
-Batching
---------
-Every star of a batch advances in lock-step through the same number of
-fixed steps; each star has its own step sizes, chosen so that step edges fall
-exactly on the EOS breakpoints below its centre and steps follow the
-local density scale (see :class:`StepControl`).  Inside one step every star stays on one EOS piece, so
-piece coefficients are gathered once per step and each stage is a handful of
-whole-array numpy operations.  Stars that need fewer steps are padded with
-zero-length steps at the surface.  A star's result depends only on its own
-grid, never on which other stars share its batch.
+Solving
+-------
+Every star is integrated on its own by a compiled kernel
+(:mod:`stellar_match.kernels.tov_stepping`): adaptive Dormand-Prince 5(4)
+steps, each accepted or rejected on its embedded error estimate, ending
+exactly on every EOS breakpoint.  The EOS enters as flat coefficient arrays
+(:mod:`stellar_match.eos.lowering`).  This module holds the equations in
+numpy form (the readable statement of what the kernel computes, used by the
+profiles), the surface formulas and the error estimates of the results.  A
+star's result depends only on its own inputs, never on its batch.
 
 Geometric units throughout (G = c = 1, km); see :mod:`stellar_match.units`.
 """
@@ -42,8 +42,8 @@ from dataclasses import dataclass, fields, replace
 import numpy as np
 
 from . import units
-from .eos import EquationOfState
-from .errors import InputError
+from .eos import EquationOfState, lowering
+from .kernels import tov_stepping
 
 __all__ = [
     "RungeKuttaTableau",
@@ -118,68 +118,71 @@ DORMAND_PRINCE_5 = RungeKuttaTableau(
 )
 
 
-#: Largest relative error in M, R and M_b that a star may carry with status 0; see solve_interiors.
+#: Largest relative error in M, R, M_b (and k2, Lambda, I when solved) that a star may carry with
+#: status 0; see solve_interiors.
 DEFAULT_TOLERANCE = 1e-5
-#: A star is accepted when its error estimate is below ESTIMATE_SAFETY * tolerance.  The estimate
-#: overstates the true error 5-30x on smooth stars, but in soft (Gamma < 1) pieces and puffed-up
-#: stars it was measured up to 1.6x below it (4800 random piecewise polytropes against solve_ivp,
-#: tests/test_error_control.py), so half the tolerance keeps the promise with a margin.
+#: The steps aim at ESTIMATE_SAFETY * tolerance for the summed error estimate: the estimate overstates
+#: the true error on smooth stars, but in soft (Gamma < 1) pieces it was measured up to 1.6x below it
+#: (random piecewise polytropes against solve_ivp, tests/test_error_control.py), so half the
+#: tolerance keeps the promise with a margin.
 ESTIMATE_SAFETY = 0.5
-#: Step budget: a star above tolerance is solved again at most this many times, on grids no finer
-#: than FINEST_SCALE times the steps of ``control`` (about 16x its steps; its cost is bounded).
-MAX_REFINEMENTS = 4
-FINEST_SCALE = 1.0 / 16.0
+#: Step budget of one star: attempted steps (accepted and rejected) before it is given up (status 1).
+MAX_STEPS = 3000
+#: A star whose k2, Lambda or I estimate misses the tolerance is solved again (alone) with the step
+#: target lowered by the fourth-power law, at most this many times.
+MAX_RETRIES = 3
+#: With the response equations the steps aim this much lower: Lambda = (2/3) k2 (R/M)^5 carries five
+#: times the relative error of the compactness, and k2 that of y amplified by dk2/dy near y = 2
+#: (Hinderer 2008, eq. 23), so aiming at the Lambda estimate directly spares most re-solves.
+RESPONSE_AIM = 8.0
 #: Compactness GM/(Rc^2) of every static fluid star is below 4/9 (Buchdahl 1959, Phys. Rev. 116, 1027).
 BUCHDAHL_LIMIT = 4.0 / 9.0
 
+
 @dataclass(frozen=True)
 class StepControl:
-    """Where the fixed steps go; the accuracy knobs of the solver.
+    """Accuracy knobs of the solver: tolerance, step budget, the largest steps.
 
-    Step edges are the union of (a) a geometric progression off the centre,
-    x_{k+1} = (1 + ``startup_growth``) x_k from x_0 = ``start_offset`` h_c out
-    to half the star, which keeps explicit steps stable near the regular
-    singular point where the decaying mode v ~ x^(-3/2) lives; (b) EOS nodes
-    spaced ``density_step`` in ln(rho) above the envelope, so that steps
-    follow the local scale d h = c_s^2 d ln(rho) of the matter; (c) nodes
-    every ``enthalpy_step`` in h; (d) every EOS breakpoint; (e) a geometric
-    grading of the envelope towards h = 0.  The defaults were chosen with
-    benchmarks/bench_sequence.py against solve_ivp at rtol 1e-11: relative
-    errors about 2e-7 in M and R over 0.2-2.0 Msun for SLy (below 1e-6 for
-    every star the tests check, puffed-up low-mass stars included).
+    Every star takes its own adaptive steps (:mod:`stellar_match.kernels.tov_stepping`):
+    a step is accepted when its embedded error estimate, relative to the
+    state, is below ``ESTIMATE_SAFETY * tolerance * step_scale**4 * dh / h_c``,
+    so the summed estimate of the whole star stays below the tolerance.
+    Steps end on every EOS breakpoint, and none is longer than the caps below.
 
     Attributes
     ----------
-    density_step : float
-        Largest step in ln(rho) above the envelope.
-    enthalpy_step : float
-        Largest step in h.
-    envelope_density : float
-        Rest-mass density (g/cm^3) below which the envelope is graded in h
-        instead of followed in density (or ENVELOPE_FRACTION rho_c, if lower).
+    tolerance : float
+        Largest relative error in M, R and M_b (and k2, Lambda and I when
+        the response equations are solved) a star may carry with status 0
+        (see :func:`solve_interiors`).
+    step_scale : float
+        Multiplies every step cap and, below 1, to the fourth power the error
+        the steps aim at: the steps are then finer than the tolerance needs
+        (0.5: about 16x smaller errors for about twice the steps).
+    max_steps : int
+        Step budget of a star: attempted steps (accepted and rejected)
+        before it ends with status 1.
     startup_growth : float
-        Largest step relative to the distance from the centre.
+        Largest step relative to the distance x = h_c - h from the centre.
+    enthalpy_step : float
+        Largest step in h (inf: none).
+    density_step : float
+        Largest step in ln(rho), as dh = c_s^2 d ln(rho) (inf: none).
     start_offset : float
         x_0 / h_c where the central series hands over; the neglected series
         terms are O(start_offset^2) relative.
     tableau : RungeKuttaTableau
-        The stepping scheme.
-    tolerance : float
-        Largest relative error in M, R and M_b a star may carry with status 0
-        (see :func:`solve_interiors`).
-    max_refinements : int
-        Step budget: how often a star above tolerance is solved again on a
-        finer grid (never finer than FINEST_SCALE times these steps).
+        The stepping scheme (explicit, with an embedded error estimate).
     """
 
-    density_step: float = 0.12
-    enthalpy_step: float = 0.08
-    envelope_density: float = 1e10
+    tolerance: float = DEFAULT_TOLERANCE
+    step_scale: float = 1.0
+    max_steps: int = MAX_STEPS
     startup_growth: float = 0.6
+    enthalpy_step: float = np.inf
+    density_step: float = np.inf
     start_offset: float = 1e-4
     tableau: RungeKuttaTableau = DORMAND_PRINCE_5
-    tolerance: float = DEFAULT_TOLERANCE
-    max_refinements: int = MAX_REFINEMENTS
 
     def __repr__(self) -> str:
         # only what differs from the defaults: help() shows ``control=StepControl()``
@@ -188,9 +191,15 @@ class StepControl:
         return f"StepControl({', '.join(changed)})"
 
     def scaled(self, factor: float) -> StepControl:
-        """The same control with every step length multiplied by ``factor``."""
-        return replace(self, density_step=self.density_step * factor, enthalpy_step=self.enthalpy_step * factor,
-                       startup_growth=self.startup_growth * factor)
+        """The same control with every step cap, and the step scale, multiplied by ``factor``."""
+        return replace(self, step_scale=self.step_scale * factor, startup_growth=self.startup_growth * factor,
+                       enthalpy_step=self.enthalpy_step * factor, density_step=self.density_step * factor)
+
+    @property
+    def step_target(self) -> float:
+        """Summed relative error the steps of a star aim at."""
+        # a scale above 1 widens the caps only: the steps never aim above the tolerance
+        return ESTIMATE_SAFETY * self.tolerance * min(self.step_scale, 1.0) ** 4
 
 
 def _same_default(value, default) -> bool:
@@ -200,37 +209,10 @@ def _same_default(value, default) -> bool:
 
 
 DEFAULT_STEPS = StepControl()
-#: A star's envelope starts at most this fraction of its central density down
-#: (so low-density, Newtonian stars keep density-following steps).
-ENVELOPE_FRACTION = 1e-6
-#: Below a star's envelope enthalpy h_env, edges sit at h_env g^k, k = 1..ENVELOPE_STEPS.
-ENVELOPE_GRADING = 0.4
-ENVELOPE_STEPS = 10
-#: Stars less compact than this are re-solved with a deeper envelope (see solve_interiors).
-LOW_COMPACTNESS = 0.006
-#: ... and whose envelope holds more than this share of the radius.  Near the surface hydrostatic
-#: equilibrium gives dh/dr ~ -C/R (C = GM/(Rc^2)), so the envelope below h_env is about h_env/C of
-#: R deep.  Measured with the defaults: puffed-up neutron stars (SLy, rho_c 5e13-1.8e14 g/cm^3)
-#: 0.8 and more; white dwarfs (electron_gas, 1e4-1e11 g/cm^3) 1e-5 to 8e-3, which the shallow
-#: grid already solves to tolerance (they used to be solved twice).
-ENVELOPE_SHARE = 0.05
-REDO_ENVELOPE_FRACTION = 1e-10
-#: ... and with every step length scaled by this (they are few; their envelopes are long).
-REDO_STEP_SCALE = 0.7
-#: A star above tolerance on the shallow envelope is solved again on the deep one with steps scaled
-#: by this.  The deep envelope brings error of its own, so 0.7 left about half of such stars (wide
-#: piecewise-polytrope priors, near their maxima) above tolerance for a third solve; each solve of a
-#: few stars costs as much as the first pass of the whole batch (per-step overhead), so one finer
-#: solve is cheaper than two (3000 wide-prior members: 271 s -> 96 s, benchmarks/bench_wide_prior.py).
-REFINE_STEP_SCALE = 0.5
-#: Steps off an interior density jump: each at most JUMP_GROWTH times the distance from the
-#: centre (scaled like the start-up), out to JUMP_REACH times the jump's distance (see _integrate).
-JUMP_GROWTH = 0.08
-#: A core of the high-density phase with h_c - h_t below this fraction of h_c is left to the central series.
-JUMP_NEGLIGIBLE = 1e-12
-#: EOS values at a step edge h = 0 are taken at SURFACE_GUARD * h_c instead:
-#: d eps/dh diverges at p = 0 when the outermost piece has Gamma > 2.
-SURFACE_GUARD = 1e-12
+#: Largest steps of the node profiles (solve_profiles' default control): the radial modes and the
+#: profile tables interpolate between the solver's nodes, so nodes follow the matter at least every
+#: 0.12 in ln(rho) and 0.08 in h (the spacing that gave the radial-mode checks their accuracy).
+PROFILE_STEPS = replace(DEFAULT_STEPS, enthalpy_step=0.08, density_step=0.12)
 
 
 @dataclass
@@ -478,146 +460,6 @@ def love_number_k2(compactness, y_surface):
     return num / np.where(C < 0.15, d_series, d_closed)
 
 
-def eos_nodes(eos: EquationOfState, control: StepControl, h_top: float, rho_floor: float):
-    """Star-independent step edges of one EOS below ``h_top``.
-
-    Returns three ascending arrays of log-enthalpies:
-
-    * ``always``: nodes every ``enthalpy_step`` in h;
-    * ``density``: a lattice ln(rho / 1 g cm^-3) = k ``density_step`` (k
-      integer) from ``rho_floor`` (g/cm^3) up.  A star uses the lattice nodes
-      above its own envelope density, so every star sees the same nodes
-      whatever else is in its batch;
-    * ``breaks``: the EOS breakpoints, each an edge for every star below it.
-
-    A node closer than a third of its local spacing to a breakpoint is
-    dropped, so table knots do not double the step count.
-    """
-    breaks = eos.breakpoints_h[eos.breakpoints_h < h_top]
-    h_nodes = np.arange(1, int(h_top / control.enthalpy_step) + 1) * control.enthalpy_step
-    density = np.empty(0)
-    _, _, rho_top = eos.state(np.array([h_top]))
-    rho_top_cgs = units.density_from_geometric(rho_top[0])
-    if np.isfinite(rho_top_cgs) and rho_top_cgs > rho_floor:
-        k = np.arange(np.floor(np.log(rho_floor) / control.density_step),
-                      np.ceil(np.log(rho_top_cgs) / control.density_step) + 1)
-        try:
-            density = eos.enthalpy_of_density(units.density_to_geometric(np.exp(k * control.density_step)))
-        except InputError:  # no density axis (incompressible): h-steps only
-            density = np.empty(0)
-
-    def thin(nodes):
-        nodes = nodes[(nodes > 0) & (nodes < h_top)]
-        if not (breaks.size and nodes.size):
-            return nodes
-        j = np.clip(np.searchsorted(breaks, nodes), 1, breaks.size) - 1
-        near = np.minimum(np.abs(nodes - breaks[j]),
-                          np.abs(nodes - breaks[np.minimum(j + 1, breaks.size - 1)]))
-        # local spacing from the EOS at the node itself (batch-independent)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            cs2 = np.nan_to_num(eos.sound_speed_squared(nodes), nan=np.inf)
-        spacing = np.minimum(control.enthalpy_step, control.density_step * cs2)
-        return nodes[near > spacing / 3.0]
-
-    return np.unique(thin(h_nodes)), np.unique(thin(density)), breaks
-
-
-def _stacked_nodes(bound, control: StepControl, h_c: np.ndarray, rho_env: np.ndarray):
-    """Per-star node matrices (G, n) for a batch of an EOS stack (see eos.EOSStack)."""
-    per_member = {}
-    for m in np.unique(bound.member):
-        sel = bound.member == m
-        per_member[m] = eos_nodes(bound.stack.members[m], control, float(h_c[sel].max()),
-                                  float(rho_env[sel].min()))
-    out = []
-    for part in range(3):
-        width = max(per_member[m][part].size for m in per_member)
-        table = np.full((width, h_c.size), np.inf)  # inf never lies below a star's centre
-        for m, nodes in per_member.items():
-            sel = np.flatnonzero(bound.member == m)
-            table[: nodes[part].size, sel] = nodes[part][:, None]
-        out.append(table)
-    return tuple(out)
-
-
-def _column(nodes: np.ndarray) -> np.ndarray:
-    """Nodes as (G, 1) for one EOS or (G, n) per star."""
-    return nodes[:, None] if nodes.ndim == 1 else nodes
-
-
-def step_grid(
-    always: np.ndarray,
-    density: np.ndarray,
-    breakpoints: np.ndarray,
-    central_enthalpy: np.ndarray,
-    start_offset: np.ndarray,
-    startup_end: np.ndarray,
-    envelope_enthalpy: np.ndarray,
-    growth: float,
-    max_step: float = np.inf,
-    extra: np.ndarray | None = None,
-) -> np.ndarray:
-    """Per-star step edges: a geometric start-up, then the EOS nodes.
-
-    Parameters
-    ----------
-    always, density, breakpoints : ndarray
-        Star-independent edges from :func:`eos_nodes`, ascending.
-    central_enthalpy, start_offset, startup_end, envelope_enthalpy : ndarray, shape (n,)
-        h_c, the series hand-over distance x_0, the distance from the centre
-        where the geometric start-up ends, and the h below which a star
-        uses no density nodes.
-    growth : float
-        Ratio of each start-up step to its distance from the centre.
-    max_step : float
-        The largest enthalpy step of the other edges (``enthalpy_step``).
-    extra : ndarray, shape (K, n), optional
-        More edges per star (those off interior density jumps); entries
-        outside (0, h_c - x_0) must be 0.
-
-    Returns
-    -------
-    edges : ndarray, shape (S + 1, n)
-        Step edges in h, descending from h_c - x_0 to exactly 0; stars that
-        need fewer steps end with zero-length steps at h = 0.
-    """
-    h_c = central_enthalpy
-    # The geometric progression runs all the way to h = 0 (as extra edges beyond the
-    # start-up end): no step may exceed ``growth`` times its distance from the centre,
-    # or the decaying central mode makes explicit steps unstable, e.g. where a stiff
-    # piece with sparse nodes follows a soft piece just off the centre.
-    n_geo = np.ceil(np.log(h_c / start_offset) / np.log1p(growth)).astype(np.intp)
-    k = np.arange(int(n_geo.max(initial=0)) + 1)[:, None]
-    x = start_offset[None, :] * (1.0 + growth) ** k
-    dense = x <= startup_end[None, :]
-    # beyond x = min(h_c / 2, enthalpy_step / growth) the other edges are dense enough
-    reach = np.maximum(startup_end, np.minimum(0.5 * h_c, max_step / growth))[None, :]
-    x = np.where(dense | (x < reach), np.minimum(x, reach), reach)
-    top = (h_c - startup_end)[None, :]
-    always, density, breakpoints = _column(always), _column(density), _column(breakpoints)
-    # EOS nodes apply inside the start-up region too: where c_s^2 changes fast near
-    # the centre (soft pieces, Gamma < 1) the start-up alone would step too far
-    start = (h_c - start_offset)[None, :]
-    use_always = always < start
-    use_density = (density < start) & (density >= envelope_enthalpy[None, :])
-    # every breakpoint below the start is an edge, also inside the start-up region
-    use_breaks = breakpoints < (h_c - start_offset)[None, :]
-    # the envelope is graded geometrically towards h = 0: there 1/r, not r, is
-    # nearly linear in h, and a puffed-up low-mass star keeps most of its radius there
-    env = envelope_enthalpy[None, :] * ENVELOPE_GRADING ** np.arange(1, ENVELOPE_STEPS + 1)[:, None]
-    env = np.where(env < top, env, 0.0)
-    h = np.concatenate([
-        h_c[None, :] - x,
-        np.where(use_always, always, 0.0),
-        np.where(use_density, density, 0.0),
-        np.where(use_breaks, breakpoints, 0.0),
-        env,
-        np.zeros((1, h_c.size)),
-        *(() if extra is None else (extra,)),
-    ])
-    return -np.sort(-h, axis=0)
-
-
 def solve_interiors(
     eos: EquationOfState,
     central_enthalpy,
@@ -630,11 +472,11 @@ def solve_interiors(
     Parameters
     ----------
     eos : EquationOfState
-        The equation of state.
+        The equation of state (or a bound ensemble stack).
     central_enthalpy : array_like, shape (n,)
         Central log-enthalpies, each in (0, ``eos.h_max``].
     control : StepControl, optional
-        Step placement, scheme, tolerance and step budget (the accuracy knobs).
+        Tolerance, step budget and step caps (the accuracy knobs).
     response : bool, optional
         Also integrate the tidal (k2, Lambda) and slow-rotation (I)
         equations as three more components of the same state.
@@ -648,38 +490,123 @@ def solve_interiors(
 
     Notes
     -----
-    A star's envelope, where only enthalpy steps graded towards the surface
-    are taken, starts at min(control.envelope_density, ENVELOPE_FRACTION
-    rho_c).  Stars that come out puffed up (GM/(Rc^2) < LOW_COMPACTNESS, the
-    low-mass and unstable configurations near the minimum mass) keep much of
-    their radius there (more than ENVELOPE_SHARE, estimated from h_env and
-    the compactness; white dwarfs do not), so they are solved again, with
-    the envelope pushed down to REDO_ENVELOPE_FRACTION rho_c and steps scaled
-    by REDO_STEP_SCALE.
-
-    Error control: every step's embedded Dormand-Prince estimate of the
-    local error of (u, v, w), relative to the state, is summed along the
-    star (:func:`_integrate`); with u = R^2, M = v R^3, M_b = w R^3 this
-    bounds the relative errors of R (half the u sum), M and M_b (their sum
-    plus 1.5 times the u sum).  The sum of local estimates of the embedded
-    fourth-order solution overstates the error of the propagated
-    fifth-order one (tests/test_error_control.py measures by how much).
-    A star above tolerance is solved again: first on the deep envelope with
-    steps scaled by REFINE_STEP_SCALE (if it was on the shallow one), then
-    on grids scaled towards the tolerance by the estimate's fourth-power
-    law, at most ``control.max_refinements`` times in all.
-    Every decision depends only on the star itself, never on its batch.
+    Every star is integrated on its own by the compiled solver
+    (:mod:`stellar_match.kernels.tov_stepping`), with adaptive
+    Dormand-Prince steps whose embedded error is checked at every step.
+    The summed local estimates of (u, v, w) bound the relative errors of
+    R = sqrt(u) (half the u sum), M = v u^(3/2) and M_b = w u^(3/2) (their
+    sum plus 1.5 times the u sum); with the response equations the sums of
+    y, omega-bar and psi give those of k2, Lambda and I through their
+    formulas (:func:`_response_errors`).  A star whose k2, Lambda or I
+    estimate misses the tolerance is solved again, alone, with a smaller
+    step target (at most MAX_RETRIES times).  A star that runs out of its
+    step budget has status 1.  Every decision depends only on the star
+    itself, never on its batch.
     """
     return _solve(eos, central_enthalpy, control, response, record=False)[0]
 
 
+def _kernel_arguments(bank, control: StepControl, response: bool):
+    tab = control.tableau
+    return (bank.piece_lo, bank.piece_hi, bank.piece_top, bank.piece_type, bank.coefficients,
+            bank.jump_lo, bank.jump_hi, bank.jump_h, bank.jump_delta_eps, bank.jump_pressure,
+            bank.crust_core_enthalpy, bool(response),
+            float(control.step_target / (RESPONSE_AIM if response else 1.0)), float(control.start_offset),
+            float(control.startup_growth), float(control.enthalpy_step), float(control.density_step),
+            int(control.max_steps), tab.c, tab.a, tab.b, tab.e)
+
+
+def _run_kernel(bank, member, h_c, tol_scale, control, response, record):
+    """Solve stars with the compiled kernel; returns (y, err, core, crust, flags, attempts, nodes)."""
+    n = h_c.size
+    y = np.empty((n, 6))
+    err = np.empty((n, 6))
+    core = np.empty((n, 2))
+    crust = np.full((n, 6), np.nan)
+    flags = np.empty(n, dtype=np.int64)
+    attempts = np.empty(n, dtype=np.int64)
+    args = _kernel_arguments(bank, control, response)
+    nodes = None
+    if not record:
+        tov_stepping.solve_stars(h_c, member, tol_scale, *args, y, err, core, crust, flags, attempts)
+    else:
+        nodes = []
+        rec_h = np.empty(control.max_steps + 1)
+        rec_y = np.empty((control.max_steps + 1, 6))
+        for j in range(n):
+            flags[j], attempts[j], kept = tov_stepping.solve_star_recorded(
+                h_c[j], int(member[j]), tol_scale[j], *args, y[j], err[j], core[j], crust[j], rec_h, rec_y)
+            nodes.append((rec_h[:kept].copy(), rec_y[:kept, : 6 if response else 3].copy()))
+    return y, err, core, crust, flags, attempts, nodes
+
+
+def _structure_errors(err: np.ndarray) -> np.ndarray:
+    """Relative error estimate of R, M and M_b (the largest) from the summed estimates of (u, v, w).
+
+    ``err`` has shape (n, 6); R = sqrt(u), M = v u^(3/2), M_b = w u^(3/2).
+    """
+    eu, ev, ew = err[:, 0], err[:, 1], err[:, 2]
+    return np.maximum(0.5 * eu, np.maximum(ev, ew) + 1.5 * eu)
+
+
+def _response_errors(err, compactness, y_surface, y_final, jump_term, omega_r, two_j_over_r3):
+    """Relative error estimates of k2, Lambda and I from the summed estimates (n, 6) of the state.
+
+    k2 = k2(C, y_R) (Hinderer 2008, eq. 23) is differentiated numerically in C and y_R; y_R carries
+    the absolute error of y plus that of the surface jump 4 pi R^3 eps_s / M; Lambda = (2/3) k2 C^-5;
+    I = J / (omega-bar_R + 2 J / R^3) with J = R^5 psi_R / (6 sqrt(1 - 2C)).
+    """
+    eu, ev = err[:, 0], err[:, 1]
+    e_r, e_m = 0.5 * eu, ev + 1.5 * eu
+    e_c = e_r + e_m
+    d_y = err[:, 3] * np.maximum(np.abs(y_final), 1.0) + np.abs(jump_term) * (3.0 * e_r + e_m)
+    k2 = love_number_k2(compactness, y_surface)
+    d_k2 = (np.abs(love_number_k2(compactness, y_surface + d_y) - k2)
+            + np.abs(love_number_k2(compactness * (1.0 + e_c), y_surface) - k2))
+    e_k2 = d_k2 / np.abs(k2)
+    e_lambda = e_k2 + 5.0 * e_c
+    e_j = 5.0 * e_r + err[:, 5] + compactness / (1.0 - 2.0 * compactness) * e_c
+    spin = omega_r + two_j_over_r3
+    e_i = e_j + (err[:, 4] * np.abs(omega_r) + two_j_over_r3 * (e_j + 3.0 * e_r)) / np.abs(spin)
+    return np.maximum(e_k2, np.maximum(e_lambda, e_i))
+
+
+def _surface_values(bank, member, y, err, response):
+    """Surface values and the error estimate (with the response columns when solved) of every star."""
+    u, v, w = y[:, 0], y[:, 1], y[:, 2]
+    with np.errstate(all="ignore"):
+        radius = np.sqrt(u)
+        r3 = u * radius
+        mass = v * r3
+        estimate = _structure_errors(err)
+        values = {"radius": radius, "r3": r3, "mass": mass, "baryon_mass": w * r3}
+        if response:
+            compactness = mass / radius
+            # energy-density jump at the surface: y drops by 4 pi R^3 eps(R-) / M
+            # (Damour & Nagar 2009, PRD 80, 084035; Postnikov et al. 2010, eq. 14)
+            jump_term = FOUR_PI * r3 * bank.surface_energy_density[member] / mass
+            y_surface = y[:, 3] - jump_term
+            k2 = love_number_k2(compactness, y_surface)
+            # exterior frame dragging: omega = Omega - 2J/r^3, J = phi(R)/6 with
+            # phi = C r^5 psi and C = 1/sqrt(1 - 2M/R) making j(R) = 1
+            omega_r, psi_r = y[:, 4], y[:, 5]
+            J = radius**5 * psi_r / np.sqrt(1.0 - 2.0 * compactness) / 6.0
+            values.update(love_number_k2=k2, tidal_deformability=(2.0 / 3.0) * k2 / compactness**5,
+                          moment_of_inertia=J / (omega_r + 2.0 * J / r3))
+            estimate = np.maximum(estimate, _response_errors(err, compactness, y_surface, y[:, 3], jump_term,
+                                                             omega_r, 2.0 * J / r3))
+    values["estimate"] = estimate
+    return values
+
+
 def _solve(eos, central_enthalpy, control: StepControl, response: bool, record: bool):
-    """The body of :func:`solve_interiors`; with ``record`` also each star's accepted grid and node states.
+    """The body of :func:`solve_interiors`; with ``record`` also each star's accepted nodes.
 
     Returns (StarInteriors, nodes) where ``nodes`` is None without ``record``,
     else a list with one (edges, states) pair per star: its step edges,
-    shape (S + 1,), and states, shape (S + 1, components), from the last
-    grid it was solved on (the one whose surface values are reported).
+    shape (S + 1,), descending from h_c - x_0 to 0, and the state at each,
+    shape (S + 1, components), from the solve whose surface values are
+    reported.
     """
     h_c = np.atleast_1d(np.asarray(central_enthalpy, dtype=float))
     if np.any(~np.isfinite(h_c) | (h_c <= 0)) or np.any(h_c > eos.h_max * (1 + 1e-12)):
@@ -687,102 +614,65 @@ def _solve(eos, central_enthalpy, control: StepControl, response: bool, record: 
     p_c, eps_c, rho_c = eos.state(h_c)
     n = h_c.size
     tolerance = control.tolerance
-    fraction = np.full(n, ENVELOPE_FRACTION)
-    scale = np.ones(n)
-    with np.errstate(all="ignore"):  # stars that break down are redone or flagged below
-        y, err, steps, core, crust, *first = _integrate(eos, h_c, control, response, fraction, record)
-        # recorded grids: (edges, states, column) per star, replaced whenever the star is solved again
-        nodes = [(first[0][0], first[0][1], j) for j in range(n)] if record else None
-
-        def redo(stars):
-            for factor in np.unique(scale[stars]):
-                sel = stars[scale[stars] == factor]
-                sub = eos.select(sel) if hasattr(eos, "select") else eos
-                y[:, sel], err[:, sel], steps_sel, core[:, sel], crust_sel, *again = _integrate(
-                    sub, h_c[sel], control.scaled(factor), response, fraction[sel], record)
-                steps[sel] += steps_sel
-                if crust is not None:
-                    crust[:, sel] = crust_sel
-                if record:
-                    for j, star in enumerate(sel):
-                        nodes[star] = (again[0][0], again[0][1], j)
-
-        compactness = y[1] * y[0]  # m/r = v u
-        _, h_env = _envelope_start(eos, control, fraction, rho_c)
-        thin = (compactness > 0) & (h_env * (1.0 - 2.0 * compactness) < ENVELOPE_SHARE * compactness)
-        puffed = np.flatnonzero(~(compactness >= LOW_COMPACTNESS) & ~thin)  # also NaN
-        if puffed.size:
-            fraction[puffed] = REDO_ENVELOPE_FRACTION
-            scale[puffed] = REDO_STEP_SCALE
-            redo(puffed)
-        for _ in range(control.max_refinements):
-            # NaN estimates too; a star already on the finest grid of the budget stays as it is
-            above = np.flatnonzero(~(_relative_error(err) <= ESTIMATE_SAFETY * tolerance) & (scale > FINEST_SCALE))
-            if not above.size:
-                break
-            # First refinement of a star on the shallow envelope: the deep one (a star whose
-            # radius lies mostly in its envelope can come out wrong but not puffed up, e.g. a
-            # small stiff core under a long crust); after that, halve every step.
-            shallow = above[fraction[above] == ENVELOPE_FRACTION]
-            fraction[shallow] = REDO_ENVELOPE_FRACTION
-            scale[shallow] = REFINE_STEP_SCALE
-            # the others: the global error goes as (step)^4, so aim at the tolerance in one go
-            # (with a margin; at least halving, at most 1/16)
-            deep = np.setdiff1d(above, shallow)
-            wanted = 0.8 * (ESTIMATE_SAFETY * tolerance / _relative_error(err[:, deep])) ** 0.25
-            scale[deep] = np.maximum(scale[deep] * np.clip(np.nan_to_num(wanted, nan=0.5), 1.0 / 16.0, 0.5),
-                                     FINEST_SCALE)
-            redo(above)
-
-        u, v, w = y[:3]
-        radius = np.sqrt(u)
-        r3 = u * radius
-        mass = v * r3
-        estimate = _relative_error(err)
-        finite = np.all(np.isfinite(y), axis=0) & np.isfinite(estimate)
+    bank, member = lowering.lower(eos)
+    member = np.zeros(n, dtype=np.int64) if member is None else np.ascontiguousarray(member, dtype=np.int64)
+    tol_scale = np.ones(n)
+    y, err, core, crust, flags, attempts, nodes = _run_kernel(bank, member, h_c, tol_scale, control, response,
+                                                               record)
+    values = _surface_values(bank, member, y, err, response)
+    limit = ESTIMATE_SAFETY * tolerance
+    for _ in range(MAX_RETRIES if response else 0):
+        # k2, Lambda or I above tolerance: these stars alone again, the step target lowered by the
+        # fourth-power law of the global error (with a margin; at least halved, at most 1/16)
+        again = np.flatnonzero((flags == 0) & ~(values["estimate"] <= limit) & np.isfinite(values["estimate"]))
+        if not again.size:
+            break
+        tol_scale[again] *= np.clip(0.8 * (limit / values["estimate"][again]) ** 1.25, 1.0 / 16.0, 0.5)
+        sub = _run_kernel(bank, member[again], h_c[again], tol_scale[again], control, response, record)
+        y[again], err[again], core[again], crust[again], flags[again] = sub[:5]
+        attempts[again] += sub[5]
+        if record:
+            for j, star in enumerate(again):
+                nodes[star] = sub[6][j]
+        fresh = _surface_values(bank, member[again], y[again], err[again], response)
+        for key, column in fresh.items():
+            values[key][again] = column
+    radius, r3, mass = values["radius"], values["r3"], values["mass"]
+    estimate = values["estimate"]
+    with np.errstate(all="ignore"):
+        finite = np.all(np.isfinite(y[:, : 6 if response else 3]), axis=1) & np.isfinite(estimate)
         bound = (mass > 0) & (radius > 0) & (mass / radius < BUCHDAHL_LIMIT)
-        status = np.where(~finite, 2, np.where(~bound, 3, np.where(estimate <= ESTIMATE_SAFETY * tolerance, 0, 1)))
-        status = status.astype(np.int8)
-        bad = status != 0
-        radius[bad] = mass[bad] = r3[bad] = np.nan
-        out = StarInteriors(
-            central_enthalpy=h_c,
-            central_pressure=p_c,
-            central_energy_density=eps_c,
-            central_density=rho_c,
-            radius=radius,
-            mass=mass,
-            baryon_mass=w * r3,
-            error_estimate=estimate,
-            status=status,
-            steps=steps,
-        )
-        if getattr(eos, "interior_jumps", None) is not None:
-            core_r = np.sqrt(core[0])
+    status = np.where((flags == 2) | ~finite, 2,
+                      np.where(~bound, 3, np.where((flags == 0) & (estimate <= limit), 0, 1))).astype(np.int8)
+    bad = status != 0
+    radius, mass, r3 = (np.where(bad, np.nan, a) for a in (radius, mass, r3))
+    out = StarInteriors(
+        central_enthalpy=h_c,
+        central_pressure=p_c,
+        central_energy_density=eps_c,
+        central_density=rho_c,
+        radius=radius,
+        mass=mass,
+        baryon_mass=np.where(bad, np.nan, values["baryon_mass"]),
+        error_estimate=estimate,
+        status=status,
+        steps=attempts,
+    )
+    with np.errstate(all="ignore"):
+        if eos.interior_jumps is not None:
+            core_r = np.sqrt(core[:, 0])
             out.core_radius = np.where(bad, np.nan, core_r)
-            out.core_mass = np.where(bad, np.nan, core[1] * core[0] * core_r)
-        if crust is not None:
-            crust_r = np.sqrt(crust[0])
+            out.core_mass = np.where(bad, np.nan, core[:, 1] * core[:, 0] * core_r)
+        if eos.crust_core_enthalpy is not None:
+            crust_r = np.sqrt(crust[:, 0])
             out.crust_thickness = np.where(bad, np.nan, radius - crust_r)
-            out.crust_mass = np.where(bad, np.nan, mass - crust[1] * crust[0] * crust_r)
+            out.crust_mass = np.where(bad, np.nan, mass - crust[:, 1] * crust[:, 0] * crust_r)
             # phi = C r^5 psi, the same constant C at r_cc and R
-            fraction_cc = 1.0 - crust_r**5 * crust[5] / (radius**5 * y[5]) if response else np.nan
+            fraction_cc = 1.0 - crust_r**5 * crust[:, 5] / (radius**5 * y[:, 5]) if response else np.nan
             out.crust_inertia_fraction = np.where(bad, np.nan, fraction_cc)
         if response:
-            compactness = mass / radius
-            # energy-density jump at the surface: y drops by 4 pi R^3 eps(R-) / M
-            # (Damour & Nagar 2009, PRD 80, 084035; Postnikov et al. 2010, eq. 14)
-            y_surface = y[3] - FOUR_PI * r3 * eos.surface_energy_density / mass
-            k2 = love_number_k2(compactness, y_surface)
-            out.love_number_k2 = k2
-            out.tidal_deformability = (2.0 / 3.0) * k2 / compactness**5
-            # exterior frame dragging: omega = Omega - 2J/r^3, J = phi(R)/6 with
-            # phi = C r^5 psi and C = 1/sqrt(1 - 2M/R) making j(R) = 1
-            omega_r, psi_r = y[4], y[5]
-            J = radius**5 * psi_r / np.sqrt(1.0 - 2.0 * compactness) / 6.0
-            out.moment_of_inertia = J / (omega_r + 2.0 * J / r3)
-    if record:
-        nodes = [(edges[:, j], states[:, :, j]) for edges, states, j in nodes]
+            for key in ("love_number_k2", "tidal_deformability", "moment_of_inertia"):
+                setattr(out, key, np.where(bad, np.nan, values[key]))
     return out, nodes
 
 
@@ -872,14 +762,14 @@ def solve_profiles(
     eos: EquationOfState,
     central_enthalpy,
     *,
-    control: StepControl = DEFAULT_STEPS,
+    control: StepControl = PROFILE_STEPS,
     response: bool = False,
     centre: bool = True,
 ) -> tuple[StarInteriors, InteriorProfiles]:
     """Solve a batch of stars as :func:`solve_interiors` does and return their node states too.
 
     The states are recorded along the very integration whose surface values
-    are returned (same grids, same steps, same error control), so the
+    are returned (same steps, same error control), so the
     ``StarInteriors`` equals ``solve_interiors(eos, central_enthalpy,
     control=control, response=response)`` bit for bit, and a star re-solved
     by the error control reports the nodes of the grid that was accepted.
@@ -891,7 +781,8 @@ def solve_profiles(
     central_enthalpy : array_like, shape (n,)
         Central log-enthalpies, each in (0, ``eos.h_max``].
     control : StepControl, optional
-        Step placement, scheme, tolerance and step budget.
+        Tolerance, step budget and step caps; the default, ``PROFILE_STEPS``,
+        keeps nodes at least every 0.12 in ln(rho) and 0.08 in h.
     response : bool, optional
         Also integrate the tidal and frame-dragging equations (gives the
         frame-dragging columns of the profile, and k2, Lambda, I).
@@ -953,244 +844,3 @@ def solve_profiles(
             profiles.frame_dragging_flux = psi.T
             profiles.frame_dragging_ratio = (1.0 - omega / spin[None, :]).T
     return out, profiles
-
-
-def _jump_ratios(scale: float) -> np.ndarray:
-    """x / x_t of the step edges after an interior jump (x: distance from the centre in h).
-
-    Outside a core the excess mass of the core makes v relax like A (x_t/x)^(3/2), A of order
-    [eps]/eps.  A step of relative length g = dx/x errs by about A(x) g^6, so the steps grow as
-    g = JUMP_GROWTH (x/x_t)^(1/4), keeping that error even, until they reach the ordinary
-    start-up growth (0.6, times ``scale``): about 4/JUMP_GROWTH steps out to some 10^3 x_t.
-    """
-    ratios, r = [], 1.0
-    g0, top = JUMP_GROWTH * scale, DEFAULT_STEPS.startup_growth * scale
-    while g0 * r**0.25 < top:
-        r *= 1.0 + g0 * r**0.25
-        ratios.append(r)
-    return np.array(ratios)
-
-
-def _relative_error(err: np.ndarray) -> np.ndarray:
-    """Relative error estimate of a star: the largest of those of R, M and M_b.
-
-    ``err`` holds the summed relative local errors of (u, v, w); R = sqrt(u),
-    M = v u^(3/2), M_b = w u^(3/2).
-    """
-    eu, ev, ew = err
-    return np.maximum(0.5 * eu, np.maximum(ev, ew) + 1.5 * eu)
-
-
-def _envelope_start(eos, control: StepControl, envelope_fraction, rho_c):
-    """Where each star's envelope begins: (rest-mass density in g/cm^3, log-enthalpy h_env).
-
-    At min(control.envelope_density, envelope_fraction rho_c); h_env = 0 for an
-    EOS without a density axis (incompressible: no envelope).
-    """
-    rho_env = np.minimum(control.envelope_density, envelope_fraction * units.density_from_geometric(rho_c))
-    try:
-        h_env = eos.enthalpy_of_density(units.density_to_geometric(rho_env))
-    except InputError:
-        h_env = np.zeros_like(rho_env)
-    return rho_env, h_env
-
-
-def _integrate(eos, h_c, control, response, envelope_fraction, record: bool = False):
-    """Integrate every star from its centre to h = 0.
-
-    Interior energy-density jumps (``eos.interior_jumps``, each a step edge
-    at its log-enthalpy h_t) are crossed exactly: u, v, w, omega and psi are
-    continuous there, and the tidal variable y jumps.  Its equation holds
-    the term (4 pi r^3 / (m + 4 pi r^3 p)) d eps/dh (from -(q/2) r^2 Q, with
-    e^lambda (1 - 2m/r) = 1), and d eps/dh carries -[eps] delta(h - h_t), so
-    going outwards across the jump
-
-        y(r_t+) = y(r_t-) - 4 pi r_t^3 [eps] / (m(r_t) + 4 pi r_t^3 p_t)
-                = y(r_t-) - 4 pi [eps] / (v + 4 pi p_t),
-
-    [eps] = eps(h_t+) - eps(h_t-) >= 0, the inner minus the outer energy
-    density.  With p_t = 0 this is the surface jump of Damour & Nagar
-    (2009, PRD 80, 084035) and Postnikov et al. (2010, eq. 14); in the
-    Newtonian limit it is -3 [eps] / <eps>, <eps> = 3 m / (4 pi r_t^3) the
-    mean density inside r_t.  The embedded error estimate of the step that
-    ends at a jump takes its last stage from that step's own (inner) piece.
-
-    Returns
-    -------
-    y : ndarray, shape (3 or 6, n)
-        Final state (u, v, w[, y, omega, psi]) at the surface.
-    error : ndarray, shape (3, n)
-        Accumulated local error estimates of ln u, ln v and ln w: the sum
-        over steps of |embedded Dormand-Prince estimate| / |state|.
-    steps : ndarray of int, shape (n,)
-        Steps of non-zero length taken by each star.
-    core : ndarray, shape (2, n)
-        (u, v) where the star crosses the first interior jump (NaN if it does
-        not); a core smaller than the central-series hand-over x_0 takes
-        them from the central series at x = h_c - h_t.
-    crust : ndarray, shape (3 or 6, n), or None
-        The state where each star passes the crust-core boundary
-        ``eos.crust_core_enthalpy`` (a step edge; from the central series
-        when it lies within x_0 of the centre, at the centre itself when the
-        star is all crust); None for an EOS without a crust.
-    nodes : tuple of ndarray, only with ``record=True``
-        (edges, states): the step edges, shape (S + 1, n), descending from
-        h_c - x_0 to 0, and the state at each edge as the step ending there
-        left it, shape (S + 1, 3 or 6, n) (at an interior jump: its inner
-        side, before y jumps).  Zero-length steps repeat their edge.
-    """
-    p_c, eps_c, rho_c = eos.state(h_c)
-    x0 = control.start_offset * h_c
-    deps_dh = eos.energy_density_slope(h_c)
-    n = h_c.size
-    core = np.full((2, n), np.nan)
-    jumps = getattr(eos, "interior_jumps", None)
-    if jumps is not None:
-        jump_h, jump_de, jump_p = (np.broadcast_to(a.reshape(a.shape[0], -1), (a.shape[0], n))
-                                   for a in (jumps.h, jumps.delta_eps, jumps.pressure))
-        # A jump inside the central-series region: the series holds only inside the core, so it hands
-        # over just inside the jump (the step to it stays in the core; the jump is then crossed as
-        # any other).  A core below JUMP_NEGLIGIBLE h_c in h (about 1e-6 of the radius) is too small
-        # to matter: the series from the centre phase takes it, its radius and mass from the series.
-        x_t = h_c[None, :] - jump_h
-        inside = (x_t > JUMP_NEGLIGIBLE * h_c) & (x_t < x0)
-        x0 = np.min(np.where(inside, x_t * (1.0 - 1e-9), x0), axis=0)
-        tiny = (x_t[0] > 0) & (x_t[0] <= JUMP_NEGLIGIBLE * h_c)
-        if tiny.any():
-            core[:, tiny] = central_series(p_c, eps_c, rho_c, deps_dh, x_t[0])[:2, tiny]
-    y = central_series(p_c, eps_c, rho_c, deps_dh, x0)
-    if response:
-        y = np.concatenate([y, response_series(p_c, eps_c, deps_dh, h_c, x0)])
-    # the start-up ends where its steps reach the local EOS node spacing
-    density_scale = control.density_step * (eps_c + p_c) / deps_dh  # = step * c_s^2
-    local = np.minimum(control.enthalpy_step, density_scale)
-    startup_end = np.clip(local / control.startup_growth, x0, h_c - x0)
-    rho_env, h_env = _envelope_start(eos, control, envelope_fraction, rho_c)
-    if hasattr(eos, "stack"):  # an ensemble batch: every member has its own nodes
-        always, density, breaks = _stacked_nodes(eos, control, h_c, rho_env)
-    else:
-        always, density, breaks = eos_nodes(eos, control, float(h_c.max()), float(rho_env.min()))
-    extra = None
-    if jumps is not None:
-        # Outside a core the mass of the core makes v = m/r^3 relax like (x_t/x)^(3/2), x = h_c - h the
-        # distance from the centre, with an amplitude of order [eps]/eps: as near the centre (the
-        # start-up), but with an O(1) amplitude, so steps of JUMP_GROWTH times x follow each jump
-        # for JUMP_REACH times its distance x_t (measured: M off by 4e-5 with the ordinary steps
-        # for a small core under a jump of 0.35 eps_t).
-        x_t = h_c[None, :] - jump_h
-        ratio = _jump_ratios(control.startup_growth / DEFAULT_STEPS.startup_growth)
-        e = h_c[None, None, :] - x_t[:, None, :] * ratio[None, :, None]
-        ok = (x_t[:, None, :] > x0[None, None, :]) & (e > 0) & np.isfinite(e)
-        extra = np.where(ok, e, 0.0).reshape(-1, n)
-    crust_h = getattr(eos, "crust_core_enthalpy", None)
-    crust = None
-    if crust_h is not None:
-        # the crust-core boundary is a step edge of every star that passes it off the central series;
-        # the others take the series there (or, all crust, at the centre: r = m = phi = 0)
-        crust_h = np.broadcast_to(np.asarray(crust_h, dtype=float), (n,))
-        passes = crust_h < h_c - x0
-        edge = np.where(passes, crust_h, 0.0)[None, :]
-        extra = edge if extra is None else np.concatenate([extra, edge])
-        x_cc = np.clip(h_c - crust_h, 0.0, None)
-        crust = central_series(p_c, eps_c, rho_c, deps_dh, x_cc)
-        if response:
-            crust = np.concatenate([crust, response_series(p_c, eps_c, deps_dh, h_c, x_cc)])
-    edges = step_grid(always, density, breaks, h_c, x0, startup_end, h_env, control.startup_growth,
-                      control.enthalpy_step, extra)
-    h_from, h_to = edges[:-1], edges[1:]
-    steps = np.count_nonzero(h_from > h_to, axis=0)
-    piece = eos.piece_index(0.5 * (h_from + h_to))
-    crust_at: dict[int, np.ndarray] = {}  # step -> stars whose step s starts at the boundary
-    if crust is not None:
-        hit = h_from == crust_h[None, :]
-        hit[1:] &= h_from[:-1] > h_from[1:]
-        hit[0] = False
-        first_hit = np.where(hit.any(axis=0), hit.argmax(axis=0), -1)
-        for s_hit in np.unique(first_hit[first_hit > 0]):
-            crust_at[int(s_hit)] = np.flatnonzero(first_hit == s_hit)
-
-    h_guard = SURFACE_GUARD * h_c
-    coeff_tables = eos.piece_arrays()
-    evaluate = eos.state_from_coefficients
-    slope = eos.slope_from_coefficients
-    tableau = control.tableau
-    c, a, b = tableau.c, tableau.a, tableau.b
-    e_stages, e_last = tableau.e[:-1], tableau.e[-1]
-    stages = len(b)
-    # Stage derivatives live in one (stages, components, stars) array, so each
-    # stage's combination sum_j a_ij k_j is a single matrix-vector product.
-    k = np.empty((stages,) + y.shape)
-    flat = k.reshape(stages, -1)  # the same memory, for one matrix-vector product per stage
-    shape = y.shape
-    # Error estimate of (u, v, w) only: p, eps and rho are continuous across EOS
-    # breakpoints, so the next step's first stage is this step's seventh (FSAL);
-    # the response equations see d eps/dh, which jumps there.
-    error = np.zeros((3, n))
-    carry = np.zeros((3, n))  # this step's estimate, all but its last stage
-    carry_flat, n3 = carry.reshape(-1), 3 * n
-    scratch = np.empty((3, n))
-    dh_prev = np.zeros(n)
-    # profiles (solve_profiles): the state at every edge, recorded along the way (never re-solved)
-    recorded = [y.copy()] if record else None
-
-    def rhs(i, hi, yi, coeff):
-        em1 = np.expm1(hi)
-        p, e, r = evaluate(hi, coeff, em1)
-        if response:
-            response_rhs(hi, yi, p, e, r, slope(p, e, coeff, hi), out=k[i], exp_h=1.0 + em1)
-        else:
-            structure_rhs(yi, p, e, r, out=k[i])
-
-    for s in range(h_from.shape[0]):
-        h0 = h_from[s]
-        dh = h_to[s] - h0
-        idx = piece[s]
-        coeff = {name: table[idx] for name, table in coeff_tables.items()}
-        crossing = None
-        if s in crust_at:
-            crust[:, crust_at[s]] = y[:, crust_at[s]]
-        if jumps is not None and s > 0:
-            at_jump = (jump_h == h0[None, :]) & (h_from[s - 1] > h0)[None, :]
-            if at_jump.any():
-                crossing = np.flatnonzero(at_jump.any(axis=0))
-                first = np.flatnonzero(at_jump[0])
-                core[:, first] = y[:2, first]
-                if response:
-                    for j in range(jump_h.shape[0]):
-                        sel = np.flatnonzero(at_jump[j])
-                        y[3, sel] -= FOUR_PI * jump_de[j, sel] / (y[1, sel] + FOUR_PI * jump_p[j, sel])
-                # the last stage of the step that ended here, on its own (inner) piece
-                inner = {name: table[piece[s - 1][crossing]] for name, table in coeff_tables.items()}
-                last_inner = structure_rhs(y[:3, crossing], *evaluate(h0[crossing], inner))
-        for i in range(stages):
-            yi = y if i == 0 else y + dh * (a[i, :i] @ flat[:i]).reshape(shape)
-            rhs(i, np.maximum(h0 + c[i] * dh, h_guard), yi, coeff)
-            if i == 0 and s > 0:
-                last = k[0, :3]
-                if crossing is not None:
-                    last = last.copy()
-                    last[:, crossing] = last_inner
-                _accumulate(error, carry, dh_prev * e_last, last, y[:3], scratch)
-        # (u, v, w) are the first 3 n entries of each stage row of ``flat``
-        np.dot(e_stages, flat[:, :n3], out=carry_flat)
-        carry *= dh
-        dh_prev = dh
-        y = y + dh * (b @ flat).reshape(shape)
-        if record:
-            recorded.append(y.copy())  # copies: a jump changes y in place
-    # the seventh stage of the last step: the derivative at the surface
-    coeff = {name: table[piece[-1]] for name, table in coeff_tables.items()}
-    rhs(0, h_guard, y, coeff)
-    _accumulate(error, carry, dh_prev * e_last, k[0, :3], y[:3], scratch)
-    if record:
-        return y, error, steps, core, crust, (edges, np.stack(recorded))
-    return y, error, steps, core, crust
-
-
-def _accumulate(error, carry, last_weight, last_stage, state, scratch) -> None:
-    """error += |carry + last_weight * last_stage| / |state|, in place (the hot loop)."""
-    np.multiply(last_stage, last_weight, out=scratch)
-    scratch += carry
-    scratch /= state
-    np.abs(scratch, out=scratch)
-    error += scratch

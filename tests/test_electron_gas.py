@@ -137,27 +137,19 @@ def test_bad_parameters_name_their_key(kwargs, key):
     assert info.value.key == key
 
 
-def test_white_dwarfs_are_solved_once_and_puffed_up_neutron_stars_again():
-    # The deep-envelope re-solve is for stars whose envelope holds much of the radius (puffed-up
-    # neutron stars below the minimum mass); white dwarfs are as little compact but their envelope is
-    # thin, and one grid meets the tolerance.  Both against the solve_ivp reference (DOP853, rtol
-    # 1e-11, tests/reference_solutions.py).
-    from stellar_match import structure
-
-    def first_pass_steps(eos, h):
-        fraction = np.full(h.size, structure.ENVELOPE_FRACTION)
-        return structure._integrate(eos, h, structure.DEFAULT_STEPS, False, fraction)[2]
-
+def test_white_dwarfs_and_puffed_up_neutron_stars_meet_the_tolerance_within_a_modest_budget():
+    # Both are little compact and keep much of their radius near the surface, where the adaptive
+    # steps must follow the envelope.  Against the solve_ivp reference (DOP853, rtol 1e-11,
+    # tests/reference_solutions.py).
     wd = sm.electron_gas("wd", 2.0)
     h = _h(wd, np.geomspace(1e4, 1e11, 5))
     stars = sm.solve_interiors(wd, h, response=False)
-    assert np.array_equal(stars.steps, first_pass_steps(wd, h))
     sly = sm.read_piecewise_polytrope("sly", 34.384, [3.005, 2.988, 2.851])
     h_ns = _h(sly, np.array([8e13, 1.4e14]))
     puffed = sm.solve_interiors(sly, h_ns, response=False)
-    assert np.all(puffed.mass / puffed.radius < structure.LOW_COMPACTNESS)
-    assert np.all(puffed.steps > first_pass_steps(sly, h_ns))
+    assert np.all(puffed.mass / puffed.radius < 0.006)  # puffed up: GM/(Rc^2) well below a neutron star's
     for eos, hh, got in ((wd, h, stars), (sly, h_ns, puffed)):
+        assert np.all(got.steps < sm.structure.MAX_STEPS / 4)
         for i in range(hh.size):
             R, M, _ = tov_in_enthalpy(eos, float(hh[i]))
             assert got.status[i] == 0

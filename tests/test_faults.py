@@ -283,8 +283,11 @@ def test_interrupt_stops_within_two_seconds_and_leaves_no_worker(tmp_path, signu
 # --- one writer per output -----------------------------------------------------------------
 
 
-def test_a_second_run_on_the_same_output_is_refused(reference, tmp_path):
-    cfg, ref = reference
+def test_a_second_run_on_the_same_output_is_refused(tmp_path):
+    # a sweep long enough (about 7 s) that the second run surely starts while the first holds the lock
+    cfg = tmp_path / "long.toml"
+    cfg.write_text(FAULT_CONFIG.replace("count = 200", "count = 2000"))
+    ref = sweep.run_config(load_config(cfg), tmp_path / "reference.h5", workers=1)
     out = Output(tmp_path)
     with reaped(start_sweep(cfg, out.path, "--workers", "1")) as first:
         wait_until(out.lock.exists, first, "the lock file")

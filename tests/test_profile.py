@@ -23,13 +23,13 @@ def _interior(prof):
 
 def test_uniform_density_lapse_is_schwarzschilds_exact_interior():
     # Schwarzschild (1916): e^(nu/2) = (3/2) sqrt(1 - 2M/R) - (1/2) sqrt(1 - 2M r^2/R^3) (G = c = 1).
-    # Required 1e-9 along the profile (issue 12); this needs steps 1/4 of the defaults and a
-    # tolerance of 1e-11 (the default grid gives about 1e-6; measured by benchmarks/validation_report.py).
+    # Required 1e-9 along the profile; this needs a tolerance of 1e-11 (measured by
+    # benchmarks/validation_report.py).
     eos = sm.incompressible("u", 1.0e15)
     C = 0.25
     s = np.sqrt(1 - 2 * C)
     p_c = eos.energy_density * (1 - s) / (3 * s - 1)  # Schwarzschild 1916 (REFERENCE_VALUES.md)
-    control = replace(DEFAULT_STEPS.scaled(0.25), tolerance=1e-11)
+    control = replace(DEFAULT_STEPS, tolerance=1e-11)
     prof = sm.profile(eos, central_pressure=units.pressure_from_geometric(p_c), control=control)
     inside = prof.columns["region"] == "interior"
     r = prof.columns["radius"][inside]

@@ -54,7 +54,7 @@ def test_solver_results_and_controls(sly):
     stars = solve_interiors(sly, sly.enthalpy_of_density(sm.units.density_to_geometric(np.geomspace(4e14, 2e15, 50))))
     assert_short(stars, "50 stars", "50 within tolerance")
     assert repr(DEFAULT_STEPS) == "StepControl()"
-    assert_short(DEFAULT_STEPS.scaled(0.5), "density_step=0.06")
+    assert_short(DEFAULT_STEPS.scaled(0.5), "step_scale=0.5", "startup_growth=0.3")
     assert_short(DORMAND_PRINCE_5, "dopri5", "order=5")
 
 

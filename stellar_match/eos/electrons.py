@@ -32,6 +32,7 @@ import numpy as np
 
 from .. import units
 from ..errors import InputError
+from ..kernels import eos_pieces
 from . import registry
 from .base import EquationOfState
 
@@ -78,6 +79,10 @@ class ElectronGas(EquationOfState):
     parameters : dict
         Physical parameters for the run file.
     """
+
+    #: How the family lowers to the compiled solver (eos/lowering.py): its piece type and row order.
+    PIECE_TYPE = eos_pieces.ELECTRON
+    LOWERED_COEFFICIENTS = ("Krho", "KP", "R", "Cz", "aC", "G0", "RmuS")
 
     #: Coefficients that keep the formula finite on pieces of other families (see :mod:`.joined`).
     NEUTRAL_COEFFICIENTS = {"Krho": 1.0, "KP": 1.0, "R": 1.0, "Cz": 0.0, "aC": 0.0, "G0": 0.0, "RmuS": 1.0}

@@ -24,6 +24,7 @@ import numpy as np
 
 from .. import units
 from ..errors import InputError, TableError
+from ..kernels import eos_pieces
 from . import registry
 from .base import EquationOfState
 from .crust import CRUST_CORE_KEY, SLY_CRUST_CORE_DENSITY, set_crust_core
@@ -63,6 +64,10 @@ class PiecewisePolytrope(EquationOfState):
     parameters : dict
         Physical parameters for the run file.
     """
+
+    #: How the family lowers to the compiled solver (eos/lowering.py): its piece type and row order.
+    PIECE_TYPE = eos_pieces.POWER
+    LOWERED_COEFFICIENTS = ("K", "c1", "inv_gm1", "one_plus_a", "shift", "mu_s", "gamma")
 
     #: Coefficients that keep the formula finite on pieces of other families (see :mod:`.joined`):
     #: rho = e^h, p = e^(2h).

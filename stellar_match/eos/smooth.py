@@ -29,6 +29,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from ..kernels import eos_pieces
 from .base import EquationOfState
 
 __all__ = ["ExpPolynomialPieces", "SmoothPieces", "constant_sound_speed_coefficients",
@@ -99,6 +100,10 @@ class ExpPolynomialPieces(EquationOfState):
     parameters : dict
         Physical parameters for the run file.
     """
+
+    #: How the family lowers to the compiled solver (eos/lowering.py): its piece type and row order.
+    PIECE_TYPE = eos_pieces.EXP_POLY
+    LOWERED_COEFFICIENTS = ("t0", "A", "q0", "q1", "q2", "q3", "q4", "q5", "inv_mu_s")
 
     #: Coefficients that keep the formula finite on pieces of other families (see :mod:`.joined`).
     NEUTRAL_COEFFICIENTS = {"t0": 0.0, "A": 0.0, "q0": 0.0, "q1": 1.0, "q2": 0.0, "q3": 0.0, "q4": 0.0, "q5": 0.0,
@@ -258,6 +263,9 @@ class SmoothPieces(ExpPolynomialPieces):
     Parameters are those of :class:`ExpPolynomialPieces` (``offset`` all zero) plus ``shift`` m_j;
     build them with :meth:`from_knots`.
     """
+
+    PIECE_TYPE = eos_pieces.SMOOTH
+    LOWERED_COEFFICIENTS = ("E0", "B", "q0", "q1", "q2", "q3", "q4", "q5", "inv_mu_s")
 
     NEUTRAL_COEFFICIENTS = {"E0": 1.0, "B": 1.0, "q0": 0.0, "q1": 1.0, "q2": 0.0, "q3": 0.0, "q4": 0.0, "q5": 0.0,
                             "inv_mu_s": 1.0}

@@ -11,6 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from .base import EquationOfState, InteriorJumps
+from .lowering import lower_many
 
 __all__ = ["EOSStack", "BoundEOSStack"]
 
@@ -65,6 +66,13 @@ class EOSStack:
         # the crust-core boundary of each member (issue 12): all members or none (one kind)
         crust = [m.crust_core_enthalpy for m in members]
         self.crust_core_enthalpy = None if any(c is None for c in crust) else np.array(crust, dtype=float)
+        self._bank = None
+
+    def lowered(self):
+        """The members in compiled form (:class:`~.lowering.LoweredBank`), built on first use."""
+        if self._bank is None:
+            self._bank = lower_many(self.members)
+        return self._bank
 
     def bind(self, member) -> BoundEOSStack:
         """The stack seen by a batch whose star j belongs to member ``member[j]``."""

@@ -13,7 +13,7 @@ log-enthalpy h = ln(mu / mu_s) the jump sits at the single value
 h_t = h_base(p_t): the new phase is an exact constant-sound-speed piece
 (:mod:`.smooth`) starting at h_t, and the baryon density jumps there by
 delta_eps / mu_t.  The structure solver puts a step edge at h_t, applies the
-jump condition of the tidal equation there (:func:`stellar_match.structure._integrate`
+jump condition of the tidal equation there (:mod:`stellar_match.kernels.tov_stepping`
 states its exact form) and reports the radius and mass of the core of the
 new phase.
 

@@ -8,6 +8,7 @@ import numpy as np
 
 from .. import units
 from ..errors import InputError
+from ..kernels import eos_pieces
 from . import registry
 from .base import EquationOfState
 
@@ -23,6 +24,10 @@ class Incompressible(EquationOfState):
     and the surface match against the exact interior solution.  Its
     "rest-mass density" is taken as eps_0 (no internal energy).
     """
+
+    #: How the family lowers to the compiled solver (eos/lowering.py): its piece type and row order.
+    PIECE_TYPE = eos_pieces.INCOMPRESSIBLE
+    LOWERED_COEFFICIENTS = ("eps0",)
 
     name: str
     energy_density: float  # km^-2
