@@ -44,7 +44,7 @@ from .eos import (
 )
 from .errors import ConfigError, InputError, RunFileError, TableError
 from .inference import EOSLikelihood
-from .radial_modes import RadialModes  # radial modes (issue 12)
+from .radial_modes import RadialModes  # radial oscillation modes
 from .radial_modes import radial_modes as solve_radial_modes  # the module keeps the name radial_modes
 from .runfile import RunFile, read_run
 from .schema import STAR_DATASETS
@@ -54,7 +54,7 @@ from .structure import DEFAULT_STEPS, InteriorProfiles, StepControl, solve_inter
 from .sweep import run_config, solve_stars, sweep_eos
 
 _LAZY = ("plots", "exports", "scheduling", "ensemble", "likelihood", "scoring", "inference", "constraints",
-         "profile")  # profile: the module is callable, stellar_match.profile(...) (issue 12)
+         "profile")  # profile: the module is callable, stellar_match.profile(...)
 
 
 def __getattr__(name: str):

@@ -152,7 +152,7 @@ def summary_table(run) -> str:
         for code in np.unique(codes[codes != 0]):
             notes.append(f"  {n}: {int((codes == code).sum())} of {codes.size} stars NaN, star_status {code}: "
                          f"{STAR_STATUS.get(int(code), 'unknown')}")
-    for n, seq in run.eos.items():  # radial modes (issue 12): where omega_0^2 > 0 and the turning points disagree
+    for n, seq in run.eos.items():  # radial modes: where omega_0^2 > 0 and the turning points disagree
         if "radial_stable" not in seq.columns:
             continue
         rstat = np.asarray(seq.columns["radial_status"], dtype=int)

@@ -192,7 +192,7 @@ class SweepConfig:
     binaries: list[tuple[float, float]] = field(default_factory=list)
     ensembles: list = field(default_factory=list)
     output: OutputOptions = field(default_factory=OutputOptions)
-    # --- radial oscillation modes (issue 12, section 3) ---
+    # --- radial oscillation modes ---
     #: modes per star (0: off); constant Gamma_1 or None (the EOS's equilibrium index); junction conditions
     radial_modes: int = 0
     radial_adiabatic_index: float | None = None
@@ -224,7 +224,7 @@ def read_text_file(path: Path, what: str) -> str:
         raise ConfigError(f"cannot read {what} file ({exc})", source=str(path)) from None
 
 
-# --- radial oscillation modes (issue 12, section 3) ---
+# --- radial oscillation modes ---
 RADIAL_KEYS = ("radial_modes", "radial_adiabatic_index", "radial_junction")
 RADIAL_JUNCTIONS = ("rapid", "slow")
 

@@ -1,4 +1,4 @@
-"""Adiabatic radial oscillation modes of a batch of stars (issue 12, section 3).
+"""Adiabatic radial oscillation modes of a batch of stars.
 
 Equation
 --------

@@ -352,7 +352,7 @@ _SUBGROUP_DIMENSION = {"targets": "target", "binaries": "binary"}
 
 
 def _attach_mode_scale(g: h5py.Group) -> None:
-    """The ``mode`` dimension scale of the stars x modes datasets of radial modes (issue 12), if any."""
+    """The ``mode`` dimension scale of the stars x modes datasets of radial modes, if any."""
     two_d = [g[k] for k in RADIAL_MODE_2D if k in g]
     if not two_d:
         return

@@ -169,7 +169,7 @@ def _group(parent, name: str, where: str) -> h5py.Group:
     return obj
 
 
-#: Value ranges of the crust datasets (issue 12); NaN is always allowed (a star without a result).
+#: Value ranges of the crust datasets; NaN is always allowed (a star without a result).
 _CRUST_RANGES = {"crust_thickness": (0.0, np.inf), "crust_mass": (0.0, np.inf), "crust_inertia_fraction": (0.0, 1.0)}
 
 
@@ -296,9 +296,9 @@ def _check_eos_group(g, where: str, version: int) -> None:
         sub = f"{where}/{name}"
         if isinstance(obj, h5py.Dataset):
             if name in DIMENSIONS:
-                if name not in ("star", "mode"):  # mode: radial modes (issue 12)
+                if name not in ("star", "mode"):  # mode: radial modes
                     raise _Problem(sub, f"a {name!r} dimension scale belongs to a subgroup")
-            # --- radial oscillation modes (issue 12, section 3): stars x modes, or per star ---
+            # --- radial oscillation modes: stars x modes, or per star ---
             elif name in RADIAL_MODE_DATASETS:
                 two_d = name in RADIAL_MODE_2D
                 d = _dataset(g, name, sub, kind="fiub", ndim=2 if two_d else 1, unit=RADIAL_MODE_DATASETS[name][0],

@@ -123,7 +123,7 @@ def run_task(work: Work, task: Task) -> dict[str, np.ndarray]:
         eos = work.eos[task.block]
         h = central_enthalpy(eos, config.axis.quantity, values[task.start : task.stop])
         cols = star_columns(solve_interiors(eos, h, control=control))
-        if getattr(config, "radial_modes", 0):  # radial oscillation modes (issue 12)
+        if getattr(config, "radial_modes", 0):  # radial oscillation modes
             from .radial_modes import radial_columns
             cols |= radial_columns(eos, h, config.radial_modes, gamma1=config.radial_adiabatic_index,
                                    junction=config.radial_junction, control=control)

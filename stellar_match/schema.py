@@ -70,7 +70,7 @@ STAR_DATASETS: dict[str, tuple[str, str]] = {
 OPTIONAL_STAR_DATASETS: dict[str, tuple[str, str]] = {
     "core_radius": ("km", "areal radius of the core of the high-density phase (NaN: no core)"),
     "core_mass": ("solMass", "gravitational mass m(r) inside the core of the high-density phase (NaN: no core)"),
-    # -- the crust (issue 12, section 2): groups whose EOS has a crust (the SLy crust fit of the
+    # -- the crust: groups whose EOS has a crust (the SLy crust fit of the
     # piecewise_polytrope, spectral and sound_speed_nodes kinds, a table with crust_core_density);
     # r_cc is where the rest-mass density equals the EOS's crust_core_density.
     "crust_thickness": ("km", "R - r_cc, the radial extent of the crust above the crust-core boundary"),
@@ -91,7 +91,7 @@ def optional_star_datasets(eos) -> tuple[str, ...]:
     return core + crust
 
 
-# --- radial oscillation modes (issue 12, section 3) ---
+# --- radial oscillation modes ---
 #: Per-star datasets written only when ``[sweep] radial_modes = N`` asks for them (any format version):
 #: name -> (unit, meaning).  The first two are 2-D (stars x modes, dimension scales ``star`` and ``mode``).
 RADIAL_MODE_DATASETS: dict[str, tuple[str, str]] = {
@@ -232,7 +232,7 @@ DIMENSIONS: dict[str, str] = {
     "member": "index of the ensemble member",
     "target": "index of the requested mass",
     "binary": "index of the requested pair",
-    "mode": "radial mode number (0: fundamental)",  # radial modes (issue 12)
+    "mode": "radial mode number (0: fundamental)",  # radial modes
 }
 #: Dimension scales are written from this format version on (and required in its files).
 DIMENSIONS_SINCE_VERSION = 3

@@ -275,7 +275,7 @@ class StarInteriors:
     steps: np.ndarray | None = None
     core_radius: np.ndarray | None = None
     core_mass: np.ndarray | None = None
-    # -- the crust (issue 12)
+    # -- the crust
     crust_thickness: np.ndarray | None = None
     crust_mass: np.ndarray | None = None
     crust_inertia_fraction: np.ndarray | None = None

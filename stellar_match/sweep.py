@@ -179,7 +179,7 @@ def write_sequence(eos: EquationOfState, h_all: np.ndarray, chunks, sink, *, con
     of the whole sequence are kept in memory for the analysis.
     """
     columns = dict(STAR_DATASETS) | {k: OPTIONAL_STAR_DATASETS[k] for k in optional_star_datasets(eos)}
-    if radial_modes:  # radial oscillation modes (issue 12), computed with the stars of each chunk
+    if radial_modes:  # radial oscillation modes, computed with the stars of each chunk
         columns |= RADIAL_MODE_DATASETS
     sink.start_eos(eos.name, eos.kind, eos.parameters, eos.table_sha256, columns)
     kept = {k: np.empty(h_all.size) for k in _KEPT}

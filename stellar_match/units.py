@@ -273,7 +273,7 @@ def quantity_table(columns: dict, unit_of: dict, *, descriptions: dict | None = 
     return table
 
 
-# --- radial oscillation modes (issue 12, section 3) ---
+# --- radial oscillation modes ---
 #: Unit of radial_omega_squared in run files (astropy parses "rad2 / s2").
 ANGULAR_FREQUENCY_SQUARED_UNIT = "rad2 / s2"
 #: Unit of radial_frequency (nu = omega / 2 pi).

@@ -97,7 +97,7 @@ class EquationOfState(ABC):
     surface_energy_density: float = 0.0
     interior_jumps: InteriorJumps | None = None
     density_axis: bool = True
-    # -- the crust (issue 12): where the crust datasets are measured
+    # -- the crust: where the crust datasets are measured
     crust_core_enthalpy: float | None = None
 
     @abstractmethod

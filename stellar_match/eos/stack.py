@@ -63,7 +63,7 @@ class EOSStack:
             self.interior_jumps = InteriorJumps(h, de, p)
         else:
             self.interior_jumps = None
-        # the crust-core boundary of each member (issue 12): all members or none (one kind)
+        # the crust-core boundary of each member: all members or none (one kind)
         crust = [m.crust_core_enthalpy for m in members]
         self.crust_core_enthalpy = None if any(c is None for c in crust) else np.array(crust, dtype=float)
         self._bank = None
@@ -99,10 +99,6 @@ class BoundEOSStack:
             jumps.h[:, member], jumps.delta_eps[:, member], jumps.pressure[:, member])
         crust = stack.crust_core_enthalpy
         self.crust_core_enthalpy = None if crust is None else crust[member]
-
-    def select(self, stars) -> BoundEOSStack:
-        """The same stack bound to a subset of this batch's stars."""
-        return BoundEOSStack(self.stack, self.member[stars])
 
     def piece_index(self, h):
         h = np.asarray(h, dtype=float)

@@ -114,7 +114,7 @@ def phase_transition(name: str, base: EquationOfState, transition_pressure: floa
             "seidov_critical_jump": seidov_critical_jump(eps_t_cgs, p_t_cgs / c2),
         },
     )
-    # the base's crust (issue 12), ending at the transition at the latest
+    # the base's crust, ending at the transition at the latest
     if base.crust_core_enthalpy is not None:
         joined.crust_core_enthalpy = min(float(base.crust_core_enthalpy), h_t)
     return joined
