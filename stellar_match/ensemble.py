@@ -22,8 +22,8 @@ from .eos import EquationOfState, central_enthalpy, registry
 from .errors import ConfigError, InputError
 from .exterior import star_columns
 from .schema import MEMBER_STATUS, MEMBER_SUMMARIES, NOT_SOLVED, STAR_DATASETS, group_name_problem
-from .sequence import analyse_sequence, refine_maxima, value_on_stable_branch
-from .structure import StepControl, solve_interiors
+from .sequence import analyse_sequence, value_on_stable_branch
+from .structure import StepControl, mass_maxima, solve_interiors
 
 __all__ = ["EnsembleSpec", "ENSEMBLE_KINDS", "MEMBER_STATUS", "MEMBER_SUMMARIES", "solve_members"]
 
@@ -280,7 +280,7 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
     with np.errstate(all="ignore"):
         cols = star_columns(solve_interiors(stack.bind(member), np.concatenate(h_rows),
                                             control=control, response=response))
-    guesses, widths, analyses = [], [], []
+    guesses, brackets, analyses = [], [], []
     for k, row in enumerate(rows):
         sl = slice(k * n_stars, (k + 1) * n_stars)
         for name, v in cols.items():
@@ -295,11 +295,10 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
         out["stable"][row] = a.stable
         if np.isfinite(a.max_enthalpy):
             guesses.append((k, np.log(a.max_enthalpy)))
-            x = np.log(np.sort(h_rows[k]))
-            widths.append(float(np.median(np.diff(x))) if x.size > 1 else 1e-2)
+            brackets.append(a.max_bracket)
 
     if refine:
-        x_max = _refine_maxima(stack, guesses, widths, control)
+        x_max = _located_maxima(stack, guesses, brackets, control)
     else:
         x_max = _vertex_maxima(guesses, h_rows, {k: cols[k] for k in ("mass", "radius")}, n_stars)
     for k, row in enumerate(rows):
@@ -355,23 +354,20 @@ def _vertex_maxima(guesses, h_rows, cols, n_stars) -> dict[int, tuple[float, flo
     return out
 
 
-def _refine_maxima(stack, guesses, widths, control) -> dict[int, tuple[float, float, float]]:
-    """Refine every member's maximum together: {member: (ln h_max, M_max km, R km)}.
+def _located_maxima(stack, guesses, brackets, control) -> dict[int, tuple[float, float, float]]:
+    """Every member's maximum, located by compiled solves: {member: (ln h_max, M_max km, R km)}.
 
-    The single-EOS refinement (:func:`stellar_match.sequence.refine_maxima`)
-    with all members' trial stars in one stacked batch per pass.
+    :func:`stellar_match.structure.mass_maxima` in each member's bracket, then
+    one structure-only solve of all the maxima for M and R with their status.
+    Where no maximum is located, the vertex of the samples stands in.
     """
     if not guesses:
         return {}
     ks = np.array([k for k, _ in guesses])
-
-    def solve_mass(which, xs):
-        return solve_interiors(stack.bind(ks[which]), np.exp(xs), control=control, response=False).mass
-
     start = np.array([g for _, g in guesses])
-    x = refine_maxima(solve_mass, start, np.array(widths) * 0.5)
-    x = np.where(np.isfinite(x), x, start)  # no settled refinement: the vertex of the samples
-    ok = np.isfinite(x)
-    final = solve_interiors(stack.bind(ks[ok]), np.exp(x[ok]), control=control, response=False)
+    lo, hi = np.array(brackets, dtype=float).T
+    x, found, _ = mass_maxima(stack.bind(ks), lo, hi, start, control)
+    x = np.where(found, x, start)
+    final = solve_interiors(stack.bind(ks), np.exp(x), control=control, response=False)
     return {int(k): (float(xk), float(m), float(r))
-            for k, xk, m, r in zip(ks[ok], x[ok], final.mass, final.radius, strict=True)}
+            for k, xk, m, r in zip(ks, x, final.mass, final.radius, strict=True)}

@@ -34,7 +34,7 @@ import numpy as np
 from . import units
 
 __all__ = [
-    "SequenceAnalysis", "analyse_sequence", "refine_maxima", "value_on_stable_branch", "EOSSequence",
+    "SequenceAnalysis", "analyse_sequence", "value_on_stable_branch", "EOSSequence",
     "chirp_mass", "lambda_tilde",
 ]
 
@@ -59,6 +59,9 @@ class SequenceAnalysis:
         M and R (km) of the maximum-mass star, NaN if none.
     status : str
         "found", or why there is no maximum inside the sweep.
+    max_bracket : tuple of float
+        (lowest, highest) ln h_c between which the maximum lies: the samples
+        either side of the one nearest it; NaN if there is none.
     """
 
     stable: np.ndarray
@@ -68,6 +71,7 @@ class SequenceAnalysis:
     max_mass: float
     max_mass_radius: float
     status: str
+    max_bracket: tuple[float, float] = (float("nan"), float("nan"))
 
     def __repr__(self) -> str:
         return (f"SequenceAnalysis({self.stable.size} stars, {int(np.count_nonzero(self.stable))} stable; "
@@ -76,6 +80,10 @@ class SequenceAnalysis:
 
 
 SolveFn = Callable[[np.ndarray], tuple[np.ndarray, np.ndarray]]
+MaximiseFn = Callable[[float, float, float], float]
+#: Location accuracy in x = ln h_c of a maximum found by fresh solves: M - M_max ~ M'' dx^2 / 2 keeps
+#: the mass within about 1e-8 relative (M'' = O(1) Msun per unit x^2 on Read et al. 2009 sequences).
+MAXIMUM_X_TOLERANCE = 1e-4
 #: Sweeps with fewer stars get their slopes from two extra solves per star.
 FEW_STARS = 5
 
@@ -103,62 +111,9 @@ def _slopes(x: np.ndarray, mass: np.ndarray, radius: np.ndarray, solve: SolveFn,
     return (m[n:] - m[:n]) / (hi - lo), (r[n:] - r[:n]) / (hi - lo)
 
 
-def refine_maxima(solve_mass: Callable[[np.ndarray, np.ndarray], np.ndarray], x_guess, width, *,
-                  rtol: float = 1e-6, x_limit: float = np.inf) -> np.ndarray:
-    """Vertices of several M(x) curves (x = ln h_c) by repeated local quadratic fits to fresh solves.
-
-    Each pass solves five stars per curve across +-width around its estimate,
-    all curves in one call, and takes the root of each fitted dM/dx; the
-    width shrinks 8-fold per pass.  Near a maximum M - M_max ~ (x - x*)^2,
-    so a location error dx costs a relative mass error of order dx^2: a
-    curve stops once its parabola says the mass is settled to ``rtol * 1e-3``.
-
-    Parameters
-    ----------
-    solve_mass : callable
-        ``solve_mass(curve, x) -> mass`` for arrays of curve indices and x.
-    x_guess, width : array_like, shape (n,)
-        Starting estimates and half-widths of the first pass.
-    rtol : float
-        Relative accuracy goal for the maximum mass.
-    x_limit : float
-        Largest x the solver accepts (the top of a table).
-
-    Returns
-    -------
-    ndarray, shape (n,)
-        The located maxima; NaN where the fresh solves show no maximum.
-    """
-    x = np.array(x_guess, dtype=float, ndmin=1)
-    w = np.array(width, dtype=float, ndmin=1)
-    offsets = np.linspace(-1.0, 1.0, 5)
-    active = np.ones(x.size, dtype=bool)
-    for _ in range(8):
-        idx = np.flatnonzero(active)
-        if idx.size == 0:
-            break
-        xs = np.minimum(x[idx, None] + w[idx, None] * offsets[None, :], x_limit)
-        m = np.asarray(solve_mass(np.repeat(idx, 5), xs.ravel())).reshape(-1, 5)
-        for j, i in enumerate(idx):
-            if np.unique(xs[j]).size < 3 or not np.all(np.isfinite(m[j])):
-                x[i], active[i] = np.nan, False
-                continue
-            c2, c1, c0 = np.polyfit(xs[j] - x[i], m[j], 2)
-            if c2 >= 0:  # not a maximum on this scale: widen the view instead
-                w[i] *= 2.0
-                continue
-            shift = float(np.clip(-c1 / (2 * c2), -w[i], w[i]))
-            x[i] += shift
-            settled = abs(c2) * (w[i] / 8.0) ** 2 < rtol * 1e-3 * abs(c0)
-            w[i] /= 8.0
-            if settled and abs(shift) < w[i] * 8.0:
-                active[i] = False
-    x[active & (w >= 1e-3)] = np.nan  # never settled
-    return x
-
-
 def analyse_sequence(
-    central_enthalpy, mass, radius, solve: SolveFn, *, rtol: float = 1e-6, h_limit: float = np.inf
+    central_enthalpy, mass, radius, solve: SolveFn, *, rtol: float = 1e-6, h_limit: float = np.inf,
+    maximise: MaximiseFn | None = None,
 ) -> SequenceAnalysis:
     """Locate the maximum of M(h_c) and flag turning-point stability.
 
@@ -170,14 +125,20 @@ def analyse_sequence(
         Gravitational masses and radii (any consistent units).
     solve : callable or None
         ``solve(h_c) -> (mass, radius)`` for new central enthalpies; used to
-        refine the maximum by fresh solves rather than by interpolation.
-        With None the maximum is the vertex of a parabola through the three
-        samples around it, and ``max_mass`` is NaN (for callers that refine
-        many sequences together).
+        locate the maximum by fresh solves rather than by interpolation
+        (scipy's bounded Brent minimiser on -M, unless ``maximise`` is
+        given) and to give M and R there.  With None the maximum is the
+        vertex of a parabola through the three samples around it, and
+        ``max_mass`` is NaN (for callers that locate many maxima together;
+        :attr:`SequenceAnalysis.max_bracket` holds the bracket).
     rtol : float
         Relative accuracy goal for the maximum mass.
     h_limit : float
         Largest central log-enthalpy ``solve`` accepts (the top of a table).
+    maximise : callable, optional
+        ``maximise(x_lo, x_hi, x_guess) -> x`` locating the maximum of M in
+        x = ln h_c inside the bracket (NaN where there is none), e.g. the
+        compiled :func:`stellar_match.structure.mass_maxima`.
 
     Returns
     -------
@@ -199,7 +160,7 @@ def analyse_sequence(
         modes = np.full(h.size, -1)
         stable[good], slope[good], modes[good] = sub.stable, sub.mass_slope, sub.unstable_modes
         return SequenceAnalysis(stable, slope, modes, sub.max_enthalpy, sub.max_mass, sub.max_mass_radius,
-                                sub.status)
+                                sub.status, sub.max_bracket)
     x_limit = float(np.log(h_limit))
     order = np.argsort(h)
     hs = h[order]
@@ -231,6 +192,7 @@ def analyse_sequence(
 
     x_max = nan
     status = "found"
+    bracket = (nan, nan)
     if ends_of_stable:
         j = max(ends_of_stable, key=lambda k: mu[k])
         lo, hi = max(j - 1, 0), min(j + 1, x.size - 1)
@@ -239,14 +201,21 @@ def analyse_sequence(
             c2, c1, _ = np.polyfit(x[lo : hi + 1] - x[j], mu[lo : hi + 1], 2)
             if c2 < 0:
                 guess = x[j] + float(np.clip(-c1 / (2 * c2), x[lo] - x[j], x[hi] - x[j]))
-        width = max(0.5 * (x[hi] - x[lo]), 1e-4)
-        if solve is None:  # the caller refines (ensembles refine all members at once)
+        # the slopes change sign between samples i and i + 1, both inside [x[j - 1], x[j + 1]]
+        bracket = (float(x[lo]), float(min(x[hi], x_limit)))
+        if solve is None:  # the caller locates it (ensembles locate all members' maxima at once)
             x_max, status = guess, "found (vertex of the samples, not refined)"
         else:
-            x_max = float(refine_maxima(lambda _, xs: solve(np.exp(xs))[0], [guess], [width],
-                                        rtol=rtol, x_limit=x_limit)[0])
+            if maximise is None:
+                from scipy.optimize import minimize_scalar
+
+                best = minimize_scalar(lambda t: -float(solve(np.array([np.exp(t)]))[0][0]), bounds=bracket,
+                                       method="bounded", options={"xatol": MAXIMUM_X_TOLERANCE})
+                x_max = float(best.x) if best.success and np.isfinite(best.fun) else nan
+            else:
+                x_max = float(maximise(*bracket, guess))
             if not np.isfinite(x_max):
-                x_max, status = float(x[j]), "found (largest sample; refinement did not converge)"
+                x_max, status = float(x[j]), "found (largest sample; the search found no maximum)"
     elif np.all(rising):
         status = "not reached: mass still increasing at the highest central density"
     elif not np.any(rising):
@@ -284,6 +253,7 @@ def analyse_sequence(
         max_mass=max_mass,
         max_mass_radius=max_radius,
         status=status,
+        max_bracket=bracket,
     )
 
 

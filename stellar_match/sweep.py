@@ -32,7 +32,7 @@ from .schema import (
     optional_star_datasets,
 )
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
-from .structure import DEFAULT_STEPS, StepControl, solve_interiors
+from .structure import DEFAULT_STEPS, StepControl, mass_maxima, solve_interiors
 
 __all__ = ["central_enthalpy", "solve_stars", "sweep_eos", "run_config", "run_is_complete", "MemorySink"]
 
@@ -195,8 +195,11 @@ def write_sequence(eos: EquationOfState, h_all: np.ndarray, chunks, sink, *, con
         r = solve_interiors(eos, hc, control=control)
         return r.mass, r.radius
 
+    def maximise(x_lo, x_hi, x_guess):
+        return float(mass_maxima(eos, [x_lo], [x_hi], [x_guess], control)[0][0])
+
     analysis = analyse_sequence(h_all, units.mass_to_geometric(kept["mass"]), kept["radius"], refine,
-                                h_limit=eos.h_max)
+                                h_limit=eos.h_max, maximise=maximise)
     # causality is judged up to the maximum-mass star: the top of the sweep when
     # the maximum is not reached, its bottom when the whole sweep is past it
     if np.isfinite(analysis.max_enthalpy):

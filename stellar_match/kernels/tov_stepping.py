@@ -16,8 +16,22 @@ acceptance test is *error per unit step*: a step of length dh is accepted
 when its local error, relative to the state, is below
 ``tol_step * dh / h_c``, so the sum of the accepted local errors along the
 star stays below ``tol_step`` (Hairer, Norsett & Wanner 1993, *Solving
-Ordinary Differential Equations I*, sec. II.4).  That sum is reported as the
-star's error estimate.
+Ordinary Differential Equations I*, sec. II.4).
+
+A sum of local errors misses how the equations carry an early error
+forward: in a long, soft envelope (m nearly constant, so 1/r falls
+linearly in h) a relative error of r made at r_0 reaches the surface
+multiplied by R / r_0, hundreds for a puffed-up star.  So each star also
+carries its global error through the linearised equations,
+
+    g_{n+1} = g_n - dh [f(h_n, y_n + g_n) - f(h_n, y_n)] + l_n,
+
+l_n the signed embedded estimate of step n (the "linearised error
+equation" of global error estimation; Lang & Verwer 2007, SIAM J. Sci.
+Comput. 29, 1460), one more evaluation of the right-hand side per accepted
+step.  ``err_out`` receives both: the summed relative local errors of each
+component (0-5) and the propagated global error relative to the final state
+(6-11).
 
 Steps end exactly on every piece boundary of the EOS (a kink or a jump of
 the energy density: the stages of a step never straddle one) and on the
@@ -175,7 +189,11 @@ def _solve_one(h_c, lo, hi, piece_top, piece_type, coeff, jlo, jhi, jump_h, jump
     y_stage = np.empty(6)
     y_new = np.empty(6)
     err = np.zeros(6)
-    for i in range(6):
+    signed = np.zeros(6)
+    g = np.zeros(6)  # propagated global error (absolute, signed)
+    y_g = np.empty(6)
+    f_g = np.empty(6)
+    for i in range(12):
         err_out[i] = 0.0
     n_rec = 0
     if record:
@@ -225,6 +243,7 @@ def _solve_one(h_c, lo, hi, piece_top, piece_type, coeff, jlo, jhi, jump_h, jump
             acc = 0.0
             for m in range(stages + 1):
                 acc += tab_e[m] * k[m, i]
+            signed[i] = -step * acc
             err[i] = abs(step * acc) / abs(y_new[i])
             if not (math.isfinite(y_new[i]) and math.isfinite(err[i])):
                 finite = False
@@ -241,8 +260,12 @@ def _solve_one(h_c, lo, hi, piece_top, piece_type, coeff, jlo, jhi, jump_h, jump
             factor = 0.25 if not finite else max(0.2, 0.9 * (target / measure) ** 0.25)
             dh = step * factor
             continue
-        # accepted
+        # accepted: carry the global error over the step (k[0] = f(h, y) still), then take the step
         for i in range(n_comp):
+            y_g[i] = y[i] + g[i]
+        _rhs(h, y_g, kind, c, response, f_g)
+        for i in range(n_comp):
+            g[i] += -step * (f_g[i] - k[0, i]) + signed[i]
             y[i] = y_new[i]
             err_out[i] += err[i]
         h = h_new
@@ -264,7 +287,9 @@ def _solve_one(h_c, lo, hi, piece_top, piece_type, coeff, jlo, jhi, jump_h, jump
                             core_out[0] = y[0]
                             core_out[1] = y[1]
                         if response:
-                            y[3] -= FOUR_PI * jump_de[jj] / (y[1] + FOUR_PI * jump_p[jj])
+                            dd_t = y[1] + FOUR_PI * jump_p[jj]
+                            y[3] -= FOUR_PI * jump_de[jj] / dd_t
+                            g[3] += FOUR_PI * jump_de[jj] / (dd_t * dd_t) * g[1]
                 pi -= 1
                 cs2 = _rhs(h, y, piece_type[pi], coeff[pi], response, k[0])
                 continue
@@ -273,6 +298,8 @@ def _solve_one(h_c, lo, hi, piece_top, piece_type, coeff, jlo, jhi, jump_h, jump
         cs2 = cs2_new
     for i in range(n_comp):
         y_out[i] = y[i]
+        scale = max(abs(y[i]), 1.0) if i == 3 else abs(y[i])
+        err_out[6 + i] = g[i] / scale
     for i in range(n_comp, 6):
         y_out[i] = math.nan
     return flag, attempts, n_rec
