@@ -21,8 +21,9 @@ from .csv_columns import read_header
 from .eos import EquationOfState, central_enthalpy, registry
 from .errors import ConfigError, InputError
 from .exterior import star_columns
+from .kernels import branch_values
 from .schema import MEMBER_STATUS, MEMBER_SUMMARIES, NOT_SOLVED, STAR_DATASETS, group_name_problem
-from .sequence import analyse_sequence, value_on_stable_branch
+from .sequence import analyse_sequence
 from .structure import StepControl, mass_maxima, solve_interiors
 
 __all__ = ["EnsembleSpec", "ENSEMBLE_KINDS", "MEMBER_STATUS", "MEMBER_SUMMARIES", "solve_members"]
@@ -320,12 +321,6 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
             out["max_mass"][row], out["max_mass_radius"][row] = m_max, r_max
             _, _, rho = eos.state(np.array([h_top]))
             out["max_mass_central_density"][row] = units.density_from_geometric(rho[0])
-        out["radius_at_1.4"][row] = value_on_stable_branch(m, out["radius"][row], a.stable, 1.4, cubic=True)
-        # Lambda spans orders of magnitude along a branch: interpolate its logarithm
-        with np.errstate(divide="ignore", invalid="ignore"):
-            log_lam = np.log(out["tidal_deformability"][row])
-        out["tidal_deformability_at_1.4"][row] = np.exp(value_on_stable_branch(m, log_lam, a.stable, 1.4,
-                                                                               cubic=True))
         if not a.stable.any():
             out["status"][row] = 3
         elif not out["causal"][row]:
@@ -334,6 +329,13 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
             out["status"][row] = 4
         elif np.any(out["star_status"][row] != 0):
             out["status"][row] = 6
+    # values at 1.4 Msun along every member's stable branch, all rows at once;
+    # Lambda spans orders of magnitude along a branch: interpolate its logarithm
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_lam = np.log(out["tidal_deformability"])
+    branch_values.values_at_mass(out["mass"], out["radius"], out["stable"], 1.4, True, out["radius_at_1.4"])
+    branch_values.values_at_mass(out["mass"], log_lam, out["stable"], 1.4, True, out["tidal_deformability_at_1.4"])
+    out["tidal_deformability_at_1.4"] = np.exp(out["tidal_deformability_at_1.4"])
     return out
 
 

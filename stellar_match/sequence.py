@@ -32,6 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import units
+from .kernels import branch_values
 
 __all__ = [
     "SequenceAnalysis", "analyse_sequence", "value_on_stable_branch", "EOSSequence",
@@ -356,28 +357,18 @@ class EOSSequence:
 def value_on_stable_branch(mass, values, stable, target: float, *, cubic: bool = False) -> float:
     """``values`` at gravitational mass ``target`` by interpolation along the stable stars.
 
-    Linear between the two stable stars bracketing ``target``, or a cubic
-    spline in M through all of them (``cubic``; linear below four stars).
+    Linear between the two stable stars bracketing ``target``, or the
+    not-a-knot cubic spline in M through all of them (``cubic``; linear
+    below four stars; :mod:`stellar_match.kernels.branch_values`).
     NaN when the stable branch (its stars with finite values) does not
     reach ``target``.  For exact values
     at a mass, solve at that mass instead (see the targets of a sweep).
     """
     # stars without a value (NaN: not computed to tolerance, or Lambda of a star without one) take no part
-    st = np.asarray(stable, dtype=bool) & np.isfinite(mass) & np.isfinite(values)
-    m, v = np.asarray(mass, dtype=float)[st], np.asarray(values, dtype=float)[st]
-    if m.size < 2 or not (m.min() <= target <= m.max()):
-        return float("nan")
-    order = np.argsort(m)
-    m, v = m[order], v[order]
-    if not cubic:
-        return float(np.interp(target, m, v))
-    from scipy.interpolate import CubicSpline
-
-    keep = np.concatenate([[True], np.diff(m) > 0])
-    m, v = m[keep], v[keep]
-    if m.size < 4:
-        return float(np.interp(target, m, v))
-    return float(CubicSpline(m, v)(target))
+    out = np.empty(1)
+    branch_values.values_at_mass(np.asarray(mass, dtype=float)[None, :], np.asarray(values, dtype=float)[None, :],
+                                 np.asarray(stable, dtype=bool)[None, :], float(target), bool(cubic), out)
+    return float(out[0])
 
 
 def interpolate_on_stable_branch(seq: EOSSequence, mass: float, column: str) -> float:

@@ -128,3 +128,23 @@ def test_third_family_twin_branch_is_stable():
     assert st[(rho > first_min * 1.01) & (rho < second_max * 0.99)].all()
     assert not st[rho > second_max * 1.01].any()
     assert seq.summary["max_mass"] == pytest.approx(m[turns[2]], rel=1e-3)
+
+
+def test_values_on_the_stable_branch_follow_scipys_not_a_knot_spline():
+    # Reference: scipy.interpolate.CubicSpline (not-a-knot ends, its default; de Boor 1978, ch. IV)
+    # against the compiled spline of stellar_match.kernels.branch_values, on random branches.
+    from scipy.interpolate import CubicSpline
+
+    from stellar_match.sequence import value_on_stable_branch
+
+    rng = np.random.default_rng(7)
+    for n in (4, 5, 9, 30):
+        for _ in range(10):
+            m = np.sort(rng.uniform(1.0, 2.2, n))
+            v = rng.normal(size=n)
+            t = rng.uniform(m[0], m[-1])
+            got = value_on_stable_branch(m[::-1], v[::-1], np.ones(n, bool), t, cubic=True)  # any order
+            assert got == pytest.approx(float(CubicSpline(m, v)(t)), rel=1e-12, abs=1e-12)
+    m, v = np.array([1.0, 1.5, 2.0]), np.array([3.0, 2.0, 0.0])
+    assert value_on_stable_branch(m, v, np.ones(3, bool), 1.75, cubic=True) == pytest.approx(1.0)  # linear below 4
+    assert np.isnan(value_on_stable_branch(m, v, np.ones(3, bool), 2.1, cubic=True))  # not reached
