@@ -47,6 +47,7 @@ there).  Samples of (q, Lambda-tilde) are reflected about q = 1.
 
 from __future__ import annotations
 
+import functools
 import math
 from dataclasses import dataclass
 
@@ -635,6 +636,15 @@ def _group_logsumexp(values: np.ndarray, group: np.ndarray, n: int) -> np.ndarra
         return np.where(total > 0, np.log(total) + safe, -np.inf)
 
 
+@functools.lru_cache(maxsize=8)
+def _gauss_legendre(n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Legendre nodes and weights on [-1, 1] (numpy's leggauss), computed once per order."""
+    g, w = np.polynomial.legendre.leggauss(n)
+    g.setflags(write=False)
+    w.setflags(write=False)
+    return g, w
+
+
 def _nodes(branches: StableBranches, resolve: dict | None = None):
     """Gauss-Legendre nodes over the part of every piece above the floor: (piece, s, ln weight in Msun).
 
@@ -644,7 +654,7 @@ def _nodes(branches: StableBranches, resolve: dict | None = None):
     than the density's width there (8 nodes integrate a Gaussian over one
     width to about 1e-10).
     """
-    g, w = np.polynomial.legendre.leggauss(NODES)
+    g, w = _gauss_legendre(NODES)
     keep = np.flatnonzero(branches.floor_s < 1.0)
     a = branches.floor_s[keep]
     k = np.full(keep.size, SUBDIVISIONS)
@@ -738,21 +748,28 @@ def values_at_masses(branches: StableBranches, masses: np.ndarray, which="radius
 
 
 def _q_where(mc: float, mass: np.ndarray, heavier: bool, q_min: float) -> np.ndarray:
-    """q in [q_min, 1] where the heavier (m1) or lighter (m2) component has the given mass (bisection).
+    """q in [q_min, 1] where the heavier (m1) or lighter (m2) component has the given mass.
 
-    m1 = Mc (1+q)^(1/5) / q^(3/5) falls and m2 = q m1 rises with q; the result is clipped to [q_min, 1].
+    m1 = Mc (1+q)^(1/5) / q^(3/5) falls and m2 = q m1 rises with q.  In t = ln q,
+    ln m1 = ln Mc + ln(1 + e^t)/5 - 3t/5 has a slope between -3/5 and -1/2 (ln m2: between
+    2/5 and 3/5), nearly straight, so Newton's method from t = 0 reaches rounding in a few
+    steps; the result is clipped to [q_min, 1] (a mass beyond the range gives an end).
     """
-    lo, hi = np.full(mass.shape, q_min), np.ones(mass.shape)
-
-    def component(q):
-        m1 = mc * (1.0 + q) ** 0.2 / q**0.6
-        return m1 if heavier else q * m1
-
-    for _ in range(60):
-        mid = 0.5 * (lo + hi)
-        beyond = (component(mid) > mass) if heavier else (component(mid) < mass)
-        lo, hi = np.where(beyond, mid, lo), np.where(beyond, hi, mid)
-    return 0.5 * (lo + hi)
+    mass = np.asarray(mass, dtype=float)
+    usable = np.isfinite(mass) & (mass > 0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        goal = np.log(np.where(usable, mass, 1.0) / mc)
+    t = np.zeros(mass.shape)
+    for _ in range(8):
+        sigma = 1.0 / (1.0 + np.exp(-t))  # e^t / (1 + e^t)
+        base = 0.2 * np.logaddexp(0.0, t)
+        f, df = (base - 0.6 * t, 0.2 * sigma - 0.6) if heavier else (base + 0.4 * t, 0.2 * sigma + 0.4)
+        t = np.clip(t - (f - goal) / df, -50.0, 0.0)  # q <= 1
+    q = np.clip(np.exp(t), q_min, 1.0)
+    # a mass of 0 or infinity lies beyond every q: the end where the component passes it
+    light_end = 1.0 if heavier else q_min
+    beyond = np.where(mass == np.inf, q_min if heavier else 1.0, np.where(mass <= 0, light_end, q_min))
+    return np.where(usable, q, beyond)
 
 
 def _binary(branches: StableBranches, meas: BinaryMeasurement, dist) -> np.ndarray:
@@ -775,7 +792,7 @@ def _binary(branches: StableBranches, meas: BinaryMeasurement, dist) -> np.ndarr
         q_lo = np.maximum(_q_where(mc, np.where(np.isfinite(highest), highest, 0.0), True, q_min),
                           _q_where(mc, np.where(np.isfinite(lowest), lowest, np.inf), False, q_min))
     q_lo = np.where(np.isfinite(lowest), q_lo, 1.0)
-    g, w = np.polynomial.legendre.leggauss(Q_NODES)
+    g, w = _gauss_legendre(Q_NODES)
     t = np.linspace(0.0, 1.0, Q_PANELS + 1)
     a, b = t[:-1], t[1:]
     unit = ((0.5 * (a + b))[:, None] + 0.5 * (b - a)[:, None] * g[None, :]).ravel()  # nodes on [0, 1]

@@ -454,16 +454,21 @@ def love_number_k2(compactness, y_surface):
     """
     C = np.asarray(compactness, dtype=float)
     yv = np.asarray(y_surface, dtype=float)
+    C, yv = np.broadcast_arrays(C, yv)
     num = 1.6 * (1 - 2 * C) ** 2 * (2 + 2 * C * (yv - 1) - yv)  # / C^5 cancelled with D
-    powers = C[..., None] ** np.arange(_D_SERIES.shape[0])
-    d_series = (powers * (_D_SERIES[:, 0] + _D_SERIES[:, 1] * yv[..., None])).sum(axis=-1)
     with np.errstate(invalid="ignore", divide="ignore"):
-        d_closed = (
+        den = (
             2 * C * (6 - 3 * yv + 3 * C * (5 * yv - 8))
             + 4 * C**3 * (13 - 11 * yv + C * (3 * yv - 2) + 2 * C**2 * (1 + yv))
             + 3 * (1 - 2 * C) ** 2 * (2 - yv + 2 * C * (yv - 1)) * np.log1p(-2 * C)
         ) / C**5
-    return num / np.where(C < 0.15, d_series, d_closed)
+    small = C < 0.15
+    if np.any(small):  # the series only where the closed form cancels
+        c_s, y_s = C[small], yv[small]
+        powers = c_s[:, None] ** np.arange(_D_SERIES.shape[0])
+        den = np.array(den, dtype=float)
+        den[small] = (powers * (_D_SERIES[:, 0] + _D_SERIES[:, 1] * y_s[:, None])).sum(axis=-1)
+    return num / den
 
 
 def solve_interiors(
@@ -574,9 +579,10 @@ def _response_errors(err, compactness, y_surface, y_final, jump_term, omega_r, t
     e_r, e_m = 0.5 * eu, ev + 1.5 * eu
     e_c = e_r + e_m
     d_y = err[:, 3] * np.maximum(np.abs(y_final), 1.0) + np.abs(jump_term) * (3.0 * e_r + e_m)
-    k2 = love_number_k2(compactness, y_surface)
-    d_k2 = (np.abs(love_number_k2(compactness, y_surface + d_y) - k2)
-            + np.abs(love_number_k2(compactness * (1.0 + e_c), y_surface) - k2))
+    # k2 and its changes in y_R and in C, from one call
+    k2, k2_y, k2_c = np.split(love_number_k2(np.concatenate([compactness, compactness, compactness * (1.0 + e_c)]),
+                                             np.concatenate([y_surface, y_surface + d_y, y_surface])), 3)
+    d_k2 = np.abs(k2_y - k2) + np.abs(k2_c - k2)
     e_k2 = d_k2 / np.abs(k2)
     e_lambda = e_k2 + 5.0 * e_c
     e_j = 5.0 * e_r + err[:, 5] + compactness / (1.0 - 2.0 * compactness) * e_c
