@@ -89,6 +89,21 @@ MAXIMUM_X_TOLERANCE = 1e-4
 FEW_STARS = 5
 
 
+def _gradient(y: np.ndarray, x: np.ndarray) -> np.ndarray:
+    """dy/dx at the samples: numpy's ``gradient`` for uneven spacing (second order inside, first at the ends).
+
+    The three-point formula of Fornberg (1988, Math. Comp. 51, 699) for uneven steps; written out
+    because ``np.gradient`` costs more in argument handling than the arithmetic of a short sweep.
+    """
+    out = np.empty_like(y)
+    d1, d2 = np.diff(x[:-1]), np.diff(x[1:])
+    out[1:-1] = (-d2 / (d1 * (d1 + d2)) * y[:-2] + (d2 - d1) / (d1 * d2) * y[1:-1]
+                 + d1 / (d2 * (d1 + d2)) * y[2:])
+    out[0] = (y[1] - y[0]) / (x[1] - x[0])
+    out[-1] = (y[-1] - y[-2]) / (x[-1] - x[-2])
+    return out
+
+
 def _slopes(x: np.ndarray, mass: np.ndarray, radius: np.ndarray, solve: SolveFn, x_limit: float):
     """dM/dx and dR/dx at the samples.
 
@@ -97,13 +112,13 @@ def _slopes(x: np.ndarray, mass: np.ndarray, radius: np.ndarray, solve: SolveFn,
     overshoots into spurious sign changes.  Short sweeps use +-1e-4 solves.
     """
     if x.size >= FEW_STARS:
-        return np.gradient(mass, x), np.gradient(radius, x)
+        return _gradient(mass, x), _gradient(radius, x)
     if solve is None:
         # Ensembles (no solve function) with fewer distinct good stars than FEW_STARS: stars that were
         # NaN, or central densities inside the gap of a density jump, which all sit at its h.  Finite
         # differences of what is left; a single star has no slope and is not called stable.
         if x.size >= 2:
-            return np.gradient(mass, x), np.gradient(radius, x)
+            return _gradient(mass, x), _gradient(radius, x)
         return np.full(x.size, np.nan), np.full(x.size, np.nan)
     dx = 1e-4
     lo, hi = x - dx, np.minimum(x + dx, x_limit)  # one-sided at the top of a table
@@ -198,10 +213,13 @@ def analyse_sequence(
         j = max(ends_of_stable, key=lambda k: mu[k])
         lo, hi = max(j - 1, 0), min(j + 1, x.size - 1)
         guess = x[j]
-        if hi - lo == 2:
-            c2, c1, _ = np.polyfit(x[lo : hi + 1] - x[j], mu[lo : hi + 1], 2)
+        if hi - lo == 2:  # the vertex of the parabola through the three samples (Lagrange form)
+            ta, tb = x[lo] - x[j], x[hi] - x[j]
+            sa, sb = (mu[lo] - mu[j]) / ta, (mu[hi] - mu[j]) / tb
+            c2 = (sb - sa) / (tb - ta)
+            c1 = sa - c2 * ta
             if c2 < 0:
-                guess = x[j] + float(np.clip(-c1 / (2 * c2), x[lo] - x[j], x[hi] - x[j]))
+                guess = x[j] + float(np.clip(-c1 / (2 * c2), ta, tb))
         # the slopes change sign between samples i and i + 1, both inside [x[j - 1], x[j + 1]]
         bracket = (float(x[lo]), float(min(x[hi], x_limit)))
         if solve is None:  # the caller locates it (ensembles locate all members' maxima at once)

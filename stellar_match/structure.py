@@ -55,6 +55,7 @@ __all__ = [
     "central_series",
     "solve_interiors",
     "mass_maxima",
+    "warm_up",
     "StepControl",
     "DEFAULT_STEPS",
 ]
@@ -737,6 +738,28 @@ def mass_maxima(eos, x_lo, x_hi, x_guess, control: StepControl = DEFAULT_STEPS, 
     maxima_kernel.maximise_masses(member, lo, hi, guess, float(x_tol), *_kernel_arguments(bank, control, False),
                                   x_out, flags, evaluations)
     return x_out, flags == maxima_kernel.FOUND, evaluations
+
+
+def warm_up() -> None:
+    """Compile (first run after an install) or load from numba's cache every kernel of the solver.
+
+    Solves one star of a small polytrope with and without the response
+    equations, locates one maximum and interpolates one branch value; about
+    15 s the first time, well under a second once the cache exists.  Callers
+    that start worker processes call it first, so that the workers load the
+    cache instead of compiling side by side.
+    """
+    from .eos import polytrope
+    from .kernels import branch_values
+
+    eos = polytrope("warm-up", 1.0e5, 2.0)
+    h = np.array([0.5 * eos.h_max if np.isfinite(eos.h_max) else 0.2])
+    solve_interiors(eos, h, response=True)
+    solve_interiors(eos, h, response=False)
+    x = float(np.log(h[0]))
+    mass_maxima(eos, [x - 0.1], [x + 0.1], [x])
+    out = np.empty(1)
+    branch_values.values_at_mass(np.ones((1, 2)), np.ones((1, 2)), np.ones((1, 2), dtype=bool), 1.0, True, out)
 
 
 @dataclass

@@ -7,6 +7,8 @@ import subprocess
 import sys
 from pathlib import Path
 
+import numpy as np
+
 BENCHMARKS = Path(__file__).resolve().parents[1] / "benchmarks"
 
 
@@ -79,3 +81,20 @@ def test_bench_likelihood_quick(tmp_path):
     assert abs(calls["default_4_measurements"]["log_likelihood"]
                - calls["sweep_defaults_4_measurements"]["log_likelihood"]) < 1e-3
     assert report["scoring"]["members_per_second"] > 0 and report["implied_1e6_members"]["total_hours"] > 0
+
+
+def test_bench_inference_quick(tmp_path):
+    report = run_script("bench_inference.py", "--quick", json_path=tmp_path / "inference.json")
+    assert report["quick"] is True
+    for key in ("plain", "ensemble_60", "ensemble_60_one_worker", "ensemble_10", "wide_prior"):
+        assert report[key]["wall_s"] > 0 and report[key]["stars_per_s"] > 0, key
+    assert report["sampler"]["median_ms"] > 0 and np.isfinite(report["sampler"]["log_likelihood"])
+    assert report["ratio_60"] > 0 and report["implied_1e6_x_60_h"] > 0 and report["peak_worker_rss_mib"] > 0
+
+
+def test_bench_calibration_small(tmp_path):
+    report = run_script("bench_calibration.py", "--stars", 2, json_path=tmp_path / "calibration.json")
+    assert len(report["groups"]) == 8
+    for group in report["groups"].values():
+        assert group["stars"] >= 1 and group["beyond_tolerance"] == 0  # the promise of status 0
+        assert group["estimate_over_true"]["0.0"] > 0

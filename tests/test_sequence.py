@@ -148,3 +148,15 @@ def test_values_on_the_stable_branch_follow_scipys_not_a_knot_spline():
     m, v = np.array([1.0, 1.5, 2.0]), np.array([3.0, 2.0, 0.0])
     assert value_on_stable_branch(m, v, np.ones(3, bool), 1.75, cubic=True) == pytest.approx(1.0)  # linear below 4
     assert np.isnan(value_on_stable_branch(m, v, np.ones(3, bool), 2.1, cubic=True))  # not reached
+
+
+def test_slopes_along_a_sweep_equal_numpys_gradient():
+    # Reference: numpy.gradient on uneven spacing (second-order interior, first-order ends;
+    # Fornberg 1988, Math. Comp. 51, 699), against the written-out formula of the sequence analysis.
+    from stellar_match.sequence import _gradient
+
+    rng = np.random.default_rng(3)
+    for n in (2, 3, 7, 50):
+        x = np.sort(rng.uniform(0.0, 3.0, n))
+        y = rng.normal(size=n)
+        np.testing.assert_allclose(_gradient(y, x), np.gradient(y, x), rtol=1e-12, atol=1e-12)
