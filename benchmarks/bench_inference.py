@@ -9,8 +9,10 @@ the main process and of every worker sampled every 0.2 s with psutil), with
 the default solver settings ([solver] tolerance 1e-5), on the same machine in
 one run of this script:
 
-  plain        the SLy piecewise polytrope (Read et al. 2009, Table III), 20 000
-               central densities log-spaced in [2.5e14, 3.5e15] g/cm^3, 2 workers;
+  plain        the SLy piecewise polytrope (Read et al. 2009, Table III), central
+               densities log-spaced in [2.5e14, 3.5e15] g/cm^3, 2 workers: 20 000 (as
+               the issue measured it, where start-up is a third of the time) and
+               200 000 (the rate the ratios divide by: as long a run as the ensembles');
   ensemble 60  MEMBERS Read et al. piecewise polytropes of the demo prior
                (eos_tables/demo_prior.toml) x 60 stars in the same range, 2 workers
                and 1 worker (the speed-up);
@@ -131,6 +133,8 @@ def measure(members: int, wide_members: int, calls: int, plain_stars: int) -> di
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         cli_sweep(plain_config(100), 1, folder, "warm")  # the numba cache, compiled once before timing
+        r["plain_20000"] = cli_sweep(plain_config(plain_stars // 10), 2, folder, "plain20") | {
+            "stars": plain_stars // 10}
         r["plain"] = cli_sweep(plain_config(plain_stars), 2, folder, "plain") | {"stars": plain_stars}
         r["ensemble_60"] = cli_sweep(prior_config(members, 60), 2, folder, "e60") | {"stars": members * 60}
         r["ensemble_60_one_worker"] = cli_sweep(prior_config(members, 60), 1, folder, "e60w1") | {
@@ -150,11 +154,10 @@ def measure(members: int, wide_members: int, calls: int, plain_stars: int) -> di
     r["speed_up_2_over_1"] = r["ensemble_60_one_worker"]["wall_s"] / r["ensemble_60"]["wall_s"]
     per_member = (r["ensemble_60"]["wall_s"] + r["scoring_60_s"]) / members
     r["implied_1e6_x_60_h"] = per_member * 1e6 / 3600
-    # a run small enough for one chunk has no worker processes: its main process did the work
-    r["peak_worker_rss_mib"] = max(max(v["largest_worker_rss_mib"], v["main_rss_mib"]) if v["workers"] == 1
-                                   else v["largest_worker_rss_mib"] for v in r.values()
-                                   if isinstance(v, dict) and "largest_worker_rss_mib" in v
-                                   and np.isfinite(v["largest_worker_rss_mib"]))
+    # a run without worker processes (one worker, or one chunk) did its work in the main process
+    r["peak_worker_rss_mib"] = max(v["largest_worker_rss_mib"] if np.isfinite(v["largest_worker_rss_mib"])
+                                   else v["main_rss_mib"] for v in r.values()
+                                   if isinstance(v, dict) and "largest_worker_rss_mib" in v)
     r["members"], r["wide_members"] = members, wide_members
     return r
 
@@ -169,8 +172,10 @@ def machine() -> str:
 def markdown(r: dict, command: str) -> str:
     m, w = r["members"], r["wide_members"]
     rows = [
-        (f"plain SLy sweep, {r['plain']['stars']} stars, 2 workers: stars/s", f"{r['plain']['stars_per_s']:,.0f}",
-         "12 900", "not lower; aim for 2x"),
+        (f"plain SLy sweep, {r['plain_20000']['stars']} stars, 2 workers: stars/s (start-up included)",
+         f"{r['plain_20000']['stars_per_s']:,.0f}", "12 900", "not lower; aim for 2x"),
+        (f"plain SLy sweep, {r['plain']['stars']} stars, 2 workers: stars/s (the ratios' divisor)",
+         f"{r['plain']['stars_per_s']:,.0f}", "", ""),
         (f"ensemble stars/s / plain stars/s, {m} members x 60 stars", f"{r['ratio_60']:.2f}", "0.36", ">= 0.8"),
         ("the same with 10 stars per member", f"{r['ratio_10']:.2f}", "0.09", ">= 0.5"),
         (f"{m} members x 10 stars, 2 workers", f"{r['ensemble_10']['wall_s']:.1f} s", "135 s", "<= 15 s"),
@@ -212,7 +217,7 @@ def main(argv: list[str] | None = None) -> int:
     args = ap.parse_args(argv)
     if args.quick:
         args.members, args.wide_members, args.calls = 20, 20, 5
-    result = measure(args.members, args.wide_members, args.calls, 400 if args.quick else 20_000)
+    result = measure(args.members, args.wide_members, args.calls, 400 if args.quick else 200_000)
     result["date"] = datetime.date.today().isoformat()
     result["machine"] = machine()
     result["quick"] = args.quick

@@ -183,29 +183,6 @@ def summary_table(run) -> str:
     return "\n".join(lines + notes)
 
 
-#: Seconds the solver's kernels may take to load before the command says it is compiling them.
-COMPILE_NOTICE_AFTER = 1.0
-
-
-def _ready_solver() -> None:
-    """Compile or load the solver's kernels before any work, saying so when it takes a while.
-
-    The first run after an install compiles them (numba; about 15 s on a 2-core machine) into
-    numba's cache, and later runs and their workers load them from it in well under a second.
-    """
-    from .structure import warm_up
-
-    timer = threading.Timer(COMPILE_NOTICE_AFTER, logger.info,
-                            ("compiling the solver once after installation (about 15 s); "
-                             "later runs load it from numba's cache",))
-    timer.daemon = True
-    timer.start()
-    try:
-        warm_up()
-    finally:
-        timer.cancel()
-
-
 def _run_sweep(config, out: Path | None, force: bool, *, resume: bool = False,
                workers: int = 1, scheduler: str | None = None,
                log_interval: float = DEFAULT_LOG_INTERVAL) -> Path:
@@ -218,7 +195,6 @@ def _run_sweep(config, out: Path | None, force: bool, *, resume: bool = False,
     out = out if out is not None else config.path.with_suffix(".h5")
     total = config.axis.values.size * (len(config.eos) + sum(e.size for e in config.ensembles))
     members = sum(e.size for e in config.ensembles)
-    _ready_solver()  # before workers start: they load the cache instead of compiling side by side
     progress = _Progress(total, members, interval=log_interval)
     try:
         with _sweep_signals():
@@ -377,7 +353,6 @@ def cmd_profile(args) -> int:
     for path in (out, figure):
         if path is not None and not path.parent.is_dir():
             raise InputError("folder does not exist; create it first", source=str(path.parent))
-    _ready_solver()
     prof = profile(args.source, eos=args.eos, mass=args.mass, central_density=args.central_density,
                    central_pressure=args.central_pressure, outer_radius=args.outer_radius, branch=args.branch)
     a = prof.attributes

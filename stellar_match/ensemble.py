@@ -339,6 +339,13 @@ def solve_members(spec: EnsembleSpec, start: int, stop: int, quantity: str, valu
     return out
 
 
+def _parabola_at_zero(t: np.ndarray, f: np.ndarray) -> float:
+    """The parabola through three points (t_i, f_i) at t = 0 (Lagrange's interpolation formula)."""
+    t0, t1, t2 = t
+    return float(f[0] * t1 * t2 / ((t0 - t1) * (t0 - t2)) + f[1] * t0 * t2 / ((t1 - t0) * (t1 - t2))
+                 + f[2] * t0 * t1 / ((t2 - t0) * (t2 - t1)))
+
+
 def _vertex_maxima(guesses, h_rows, cols, n_stars) -> dict[int, tuple[float, float, float]]:
     """Each member's maximum from a parabola in ln h_c through its three samples nearest the vertex."""
     out = {}
@@ -351,8 +358,7 @@ def _vertex_maxima(guesses, h_rows, cols, n_stars) -> dict[int, tuple[float, flo
             continue
         near = ok[np.argsort(np.abs(x[ok] - x_guess), kind="stable")[:3]]
         t = x[near] - x_guess
-        out[k] = (float(x_guess), float(np.polyval(np.polyfit(t, m[near], 2), 0.0)),
-                  float(np.polyval(np.polyfit(t, r[near], 2), 0.0)))
+        out[k] = (float(x_guess), _parabola_at_zero(t, m[near]), _parabola_at_zero(t, r[near]))
     return out
 
 

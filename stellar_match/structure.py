@@ -740,26 +740,44 @@ def mass_maxima(eos, x_lo, x_hi, x_guess, control: StepControl = DEFAULT_STEPS, 
     return x_out, flags == maxima_kernel.FOUND, evaluations
 
 
+#: Seconds :func:`warm_up` may take before it logs that it is compiling the kernels.
+COMPILE_NOTICE_AFTER = 1.0
+
+
 def warm_up() -> None:
     """Compile (first run after an install) or load from numba's cache every kernel of the solver.
 
-    Solves one star of a small polytrope with and without the response
-    equations, locates one maximum and interpolates one branch value; about
-    15 s the first time, well under a second once the cache exists.  Callers
-    that start worker processes call it first, so that the workers load the
-    cache instead of compiling side by side.
+    Solves one star of a small polytrope of its own with and without the
+    response equations, locates one maximum and interpolates one branch
+    value: about 15 s the first time on a 2-core machine, well under a second
+    once the cache exists.  When it takes longer than
+    :data:`COMPILE_NOTICE_AFTER` it says so on the ``stellar_match`` logger
+    (the command line shows it).  :func:`stellar_match.sweep.run_config`
+    calls it before starting workers, so that they fork with the kernels
+    loaded instead of compiling side by side.
     """
+    import logging
+    import threading
+
     from .eos import polytrope
     from .kernels import branch_values
 
-    eos = polytrope("warm-up", 1.0e5, 2.0)
-    h = np.array([0.5 * eos.h_max if np.isfinite(eos.h_max) else 0.2])
-    solve_interiors(eos, h, response=True)
-    solve_interiors(eos, h, response=False)
-    x = float(np.log(h[0]))
-    mass_maxima(eos, [x - 0.1], [x + 0.1], [x])
-    out = np.empty(1)
-    branch_values.values_at_mass(np.ones((1, 2)), np.ones((1, 2)), np.ones((1, 2), dtype=bool), 1.0, True, out)
+    timer = threading.Timer(COMPILE_NOTICE_AFTER, logging.getLogger(__name__).info,
+                            ("compiling the solver once after installation (about 15 s); "
+                             "later runs load it from numba's cache",))
+    timer.daemon = True
+    timer.start()
+    try:
+        eos = polytrope("warm-up", 1.0e5, 2.0)
+        h = np.array([0.2])
+        _solve(eos, h, DEFAULT_STEPS, True, record=False)
+        _solve(eos, h, DEFAULT_STEPS, False, record=False)
+        x = float(np.log(h[0]))
+        mass_maxima(eos, [x - 0.1], [x + 0.1], [x])
+        out = np.empty(1)
+        branch_values.values_at_mass(np.ones((1, 2)), np.ones((1, 2)), np.ones((1, 2), dtype=bool), 1.0, True, out)
+    finally:
+        timer.cancel()
 
 
 @dataclass

@@ -32,7 +32,7 @@ from .schema import (
     optional_star_datasets,
 )
 from .sequence import EOSSequence, analyse_sequence, chirp_mass, lambda_tilde
-from .structure import DEFAULT_STEPS, StepControl, mass_maxima, solve_interiors
+from .structure import DEFAULT_STEPS, StepControl, mass_maxima, solve_interiors, warm_up
 
 __all__ = ["central_enthalpy", "solve_stars", "sweep_eos", "run_config", "run_is_complete", "MemorySink"]
 
@@ -381,6 +381,8 @@ def run_config(
             for t in tasks:
                 if store.done(t):
                     report(*task_stars(config, t))
+        if todo:
+            warm_up()  # compiled or loaded once here, so that forked workers start with the kernels
         try:
             # closing(): on an interrupt the executor stops its workers at once, not at exit
             with closing(execute(Work(config, tuple(built)), todo, workers=workers,

@@ -34,11 +34,11 @@ MAX_ITERATIONS = 60
 
 @njit(cache=True)
 def _mass(x, m, piece_lo, piece_hi, piece_top, piece_type, coeff, jump_lo, jump_hi, jump_h, jump_de,
-          jump_p, crust_h, tol_step, start_offset, growth, h_cap, density_cap, max_steps,
+          jump_p, crust_h, response, tol_step, start_offset, growth, h_cap, density_cap, max_steps,
           tab_c, tab_a, tab_b, tab_e, y, err, core, crust, rec_h, rec_y):
     """M (geometric) of the star of member m at x = ln h_c; NaN when it cannot be solved."""
     flag, _, _ = _solve_one(math.exp(x), piece_lo[m], piece_hi[m], piece_top, piece_type, coeff,
-                            jump_lo[m], jump_hi[m], jump_h, jump_de, jump_p, crust_h[m], False, tol_step,
+                            jump_lo[m], jump_hi[m], jump_h, jump_de, jump_p, crust_h[m], response, tol_step,
                             start_offset, growth, h_cap, density_cap, max_steps, tab_c, tab_a, tab_b, tab_e,
                             y, err, core, crust, False, rec_h, rec_y)
     if flag != 0:
@@ -55,8 +55,9 @@ def maximise_masses(member, x_lo, x_hi, x_guess, x_tol, piece_lo, piece_hi, piec
 
     ``x_guess[k]`` (clipped into the bracket) is the first trial point.  The
     arguments from ``piece_lo`` on are those of
-    :func:`~stellar_match.kernels.tov_stepping.solve_stars` (``response`` is
-    ignored: the masses come from structure-only solves).  ``x_out[k]`` is
+    :func:`~stellar_match.kernels.tov_stepping.solve_stars`; pass
+    ``response=False`` (the masses need structure-only solves; a variable,
+    not a literal, so that the star kernel is compiled once for both callers).  ``x_out[k]`` is
     the located x, NaN unless ``flags[k]`` is FOUND.
     """
     y = np.empty(6)
@@ -72,7 +73,7 @@ def maximise_masses(member, x_lo, x_hi, x_guess, x_tol, piece_lo, piece_hi, piec
         tol2 = 2.0 * tol1
         x = min(max(x_guess[k], a + tol2), b - tol2)
         fx = -_mass(x, m, piece_lo, piece_hi, piece_top, piece_type, coeff, jump_lo, jump_hi, jump_h, jump_de,
-                    jump_p, crust_h, tol_step, start_offset, growth, h_cap, density_cap, max_steps,
+                    jump_p, crust_h, response, tol_step, start_offset, growth, h_cap, density_cap, max_steps,
                     tab_c, tab_a, tab_b, tab_e, y, err, core, crust, rec_h, rec_y)
         n_eval = 1
         ok = math.isfinite(fx)
@@ -108,8 +109,8 @@ def maximise_masses(member, x_lo, x_hi, x_guess, x_tol, piece_lo, piece_hi, piec
                 d = GOLDEN * e
             u = x + d if abs(d) >= tol1 else x + (tol1 if d >= 0.0 else -tol1)
             fu = -_mass(u, m, piece_lo, piece_hi, piece_top, piece_type, coeff, jump_lo, jump_hi, jump_h,
-                        jump_de, jump_p, crust_h, tol_step, start_offset, growth, h_cap, density_cap, max_steps,
-                        tab_c, tab_a, tab_b, tab_e, y, err, core, crust, rec_h, rec_y)
+                        jump_de, jump_p, crust_h, response, tol_step, start_offset, growth, h_cap, density_cap,
+                        max_steps, tab_c, tab_a, tab_b, tab_e, y, err, core, crust, rec_h, rec_y)
             n_eval += 1
             if not math.isfinite(fu):
                 ok = False
