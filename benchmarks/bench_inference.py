@@ -116,6 +116,49 @@ def sampler_call_ms(calls: int) -> dict:
             "stars": int(like.values.size), "calls": calls}
 
 
+def sampler_breakdown(calls: int) -> dict:
+    """Milliseconds per sampler call spent in each stage, by wrapping the stages' functions with timers."""
+    import stellar_match as sm
+    from stellar_match import ensemble, inference, structure
+
+    constraints = sm.load_constraints(ROOT / "eos_tables" / "demo_constraints.toml")
+    like = sm.EOSLikelihood("piecewise_polytrope", constraints)
+    theta = [SLY[0], *SLY[1]]
+    like(theta)
+    spent: dict[str, float] = {}
+    stages = {"compiled solve of the stars": (structure, "_run_kernel"),
+              "surface values and error estimates": (structure, "_surface_values"),
+              "whole star solve (the two above included)": (ensemble, "solve_interiors"),
+              "sequence analysis": (ensemble, "analyse_sequence"),
+              "member solve (EOS build and lowering, star solve, analysis)": (inference, "solve_members"),
+              "stable branches as cubic pieces": (inference, "stable_branches"),
+              "likelihood quadratures": (inference, "log_likelihoods")}
+    saved = []
+    for label, (module, name) in stages.items():
+        original = getattr(module, name)
+        saved.append((module, name, original))
+
+        def timed(*a, _f=original, _label=label, **k):
+            t0 = time.perf_counter()
+            try:
+                return _f(*a, **k)
+            finally:
+                spent[_label] = spent.get(_label, 0.0) + time.perf_counter() - t0
+
+        setattr(module, name, timed)
+    try:
+        t0 = time.perf_counter()
+        for _ in range(calls):
+            like(theta)
+        total = time.perf_counter() - t0
+    finally:
+        for module, name, original in saved:
+            setattr(module, name, original)
+    out = {label: 1e3 * spent.get(label, 0.0) / calls for label in stages}
+    out["whole call"] = 1e3 * total / calls
+    return out
+
+
 def scoring_s(path: str) -> float:
     import stellar_match as sm
 
@@ -144,6 +187,7 @@ def measure(members: int, wide_members: int, calls: int, plain_stars: int) -> di
             "stars": wide_members * 20}
         r["scoring_60_s"] = scoring_s(r["ensemble_60"]["file"])
     r["sampler"] = sampler_call_ms(calls)
+    r["sampler_stages_ms"] = sampler_breakdown(calls)
     for v in r.values():
         if isinstance(v, dict) and "stars" in v and "wall_s" in v:
             v["stars_per_s"] = v["stars"] / v["wall_s"]
@@ -183,6 +227,8 @@ def markdown(r: dict, command: str) -> str:
          "<= 40 s"),
         ("sampler call, 60 stars, four measurements with a binary, one core, median",
          f"{r['sampler']['median_ms']:.1f} ms", "58 to 88 ms", "<= 5 ms"),
+        ("README's emcee example, 32 walkers x 2000 steps = 64 000 calls at that median, one core",
+         f"{64_000 * r['sampler']['median_ms'] / 6e4:.1f} min", "more than an hour", "minutes, not hours"),
         (f"10^6 members x 60 stars solved and scored, 2 cores (from {m} members)",
          f"{r['implied_1e6_x_60_h']:.2f} h", "about 44 h", "<= 1 h"),
         (f"2 workers over 1 on 2 cores, ensemble ({m} x 60)", f"{r['speed_up_2_over_1']:.2f}x", "1.37x",
@@ -192,6 +238,9 @@ def markdown(r: dict, command: str) -> str:
     lines = [f"Measured {r['date']} on {r['machine']}, by `{command}` (one run, side by side).", "",
              "| quantity | measured | before the compiled solver | target |", "|---|---|---|---|"]
     lines += [f"| {a} | **{b}** | {c} | {d} |" for a, b, c, d in rows]
+    lines += ["", "Where a sampler call goes (the same call, its stages timed; ms per call, one core):", "",
+              "| stage | ms |", "|---|---|"]
+    lines += [f"| {k} | {v:.2f} |" for k, v in r["sampler_stages_ms"].items()]
     return "\n".join(lines) + "\n"
 
 

@@ -38,8 +38,8 @@ __all__ = ["EOSLikelihood", "DEFAULT_CENTRAL_DENSITIES", "SAMPLER_STEP_SCALE", "
 #: for Read et al. 2009 piecewise polytropes; widen it for other kinds).
 DEFAULT_CENTRAL_DENSITIES = np.geomspace(2.5e14, 4.0e15, 60)
 #: Default solver settings of a likelihood call: steps twice the sweep default and a per-star tolerance of
-#: 5e-4, which give relative errors of 1e-5 (SLy) to 2e-4 (a stiff EOS) in M and R against step_scale 0.25,
-#: and ln L within about 6e-5 (README) -- far below any measurement's width -- at half the cost.
+#: 5e-4, which give relative errors below 3e-6 in M and R and 2e-5 (SLy) to 1.4e-4 (a stiff EOS) in Lambda
+#: against tolerance 1e-9, and ln L within 2e-6 (README) -- far below any measurement's width.
 SAMPLER_STEP_SCALE = 2.0
 SAMPLER_TOLERANCE = 5e-4
 
@@ -96,10 +96,10 @@ class EOSLikelihood:
         ones (e.g. ``["gamma0", "gamma1", "gamma2"]`` for ``spectral``); checked
         against the kind.  Default: its required columns given ``fixed``.
     refine_maximum : bool
-        Refine each maximum mass by fresh solves, or (default) take it from
-        the parabola through the three samples around it: the refinement
-        passes cost several times the sweep, and for 60 stars the vertex is
-        within a few 1e-6 Msun of the refined maximum (README's measurements).
+        Locate each maximum mass by fresh solves (Brent's search, about a
+        dozen structure-only stars), or (default) take it from the parabola
+        through the three samples around it: for 60 stars the vertex is
+        within a few 1e-6 of the located maximum (README's measurements).
 
     Examples
     --------

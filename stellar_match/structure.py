@@ -127,11 +127,12 @@ DEFAULT_TOLERANCE = 1e-5
 #: The kernel's raw estimates (the summed local errors and the carried global error, see
 #: :mod:`stellar_match.kernels.tov_stepping`) are of the embedded 4th-order solution, while the kernel
 #: propagates the 5th-order one (local extrapolation; Dormand & Prince 1980, J. Comput. Appl. Math. 6,
-#: 19), so they overstate the true error.  Divided by this factor they are the reported estimate.  Over
-#: 240 random stars of the wide piecewise-polytrope prior (every Gamma in [0.6, 6]) against solve_ivp,
-#: raw estimate / true error had a median near 300 and never fell below 49 at this calibration
-#: (benchmarks/bench_calibration.py writes the distribution), so the reported estimate stays above the
-#: true error while the steps are no finer than the tolerance needs.
+#: 19), so they overstate the true error; divided by this factor they are the reported estimate.  How
+#: much they overstate it depends on how long the steps are: about 300x on the fine steps that k2,
+#: Lambda and I need, but only 3-4x on the long steps of a structure-only white dwarf or of a 30-step
+#: neutron star.  The factor is set by the second case, so that the reported estimate stays above the
+#: true error everywhere: over 240 random stars of four regimes (benchmarks/bench_calibration.py)
+#: structure-only estimates were 4 to 10x the true error, with median true error / tolerance 0.05.
 ESTIMATE_CALIBRATION = 2.0
 #: Step budget of one star: attempted steps (accepted and rejected) before it is given up (status 1).
 MAX_STEPS = 3000

@@ -204,3 +204,33 @@ def test_quark_matter_bag_constants_and_sound_speeds(bag, cs2, over):
 @given(mu_e=st.floats(1.0, 3.0), lattice=st.booleans(), rho_c=st.floats(4.0, 11.0))
 def test_white_dwarfs_of_any_composition(mu_e, lattice, rho_c):
     check_stars(sm.electron_gas("wd", mu_e, lattice, 12.0), [10.0**rho_c])
+
+
+def test_the_estimate_is_calibrated_neither_blind_nor_far_too_pessimistic():
+    # Calibration of the structure-only estimate against the solve_ivp reference (DOP853, rtol 1e-11;
+    # tests/reference_solutions.py) over random stars of the wide prior and white dwarfs: the median
+    # true error is between 1/100 of the tolerance and the tolerance, and no star's error exceeds its
+    # estimate.  The full distribution (four regimes, with and without the response equations) is
+    # written by benchmarks/bench_calibration.py.
+    rng = np.random.default_rng(20261204)
+    wd = sm.electron_gas("wd", 2.0)
+    ratios = []
+    while len(ratios) < 40:
+        if len(ratios) % 4 == 3:
+            eos, rho = wd, 10 ** rng.uniform(4.0, 11.0)
+        else:
+            try:
+                eos = sm.read_piecewise_polytrope("wide", rng.uniform(33.8, 35.6), list(rng.uniform(0.6, 6.0, 3)))
+            except InputError:
+                continue
+            rho = 10 ** rng.uniform(14.0, np.log10(4e15))
+        h = central_enthalpy(eos, "central_density", np.array([rho]))
+        star = solve_interiors(eos, h, response=False)
+        if star.status[0] != 0:
+            continue
+        with np.errstate(all="ignore"):
+            R, M, Mb = tov_in_enthalpy(eos, float(h[0]))
+        true = max(abs(star.mass[0] / M - 1), abs(star.radius[0] / R - 1), abs(star.baryon_mass[0] / Mb - 1))
+        assert true <= star.error_estimate[0] <= DEFAULT_TOLERANCE, (eos.parameters, rho)
+        ratios.append(true / DEFAULT_TOLERANCE)
+    assert 0.01 <= np.median(ratios) <= 1.0, np.quantile(ratios, [0, 0.5, 1])
