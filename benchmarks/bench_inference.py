@@ -36,23 +36,21 @@ import json
 import os
 import platform
 import statistics
-import subprocess
 import sys
 import tempfile
 import time
 from pathlib import Path
 
 import numpy as np
-import psutil
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT / "benchmarks"))
 from bench_wide_prior import config_text as wide_prior_config  # noqa: E402
+from child_runs import run_sampling_memory  # noqa: E402
+from readme_tables import write_table  # noqa: E402
 
 SLY = (34.384, [3.005, 2.988, 2.851])  # Read et al. (2009), Table III
 RANGE = (2.5e14, 3.5e15)  # g/cm^3, the demo prior's sweep
-README_START = "<!-- bench_inference table: written by benchmarks/bench_inference.py --readme -->"
-README_END = "<!-- end of bench_inference table -->"
 
 
 def plain_config(stars: int) -> str:
@@ -80,22 +78,12 @@ def cli_sweep(text: str, workers: int, folder: Path, name: str) -> dict:
     out = folder / f"{name}.h5"
     cmd = [sys.executable, "-m", "stellar_match.cli", "sweep", str(cfg), "-o", str(out), "--workers", str(workers),
            "--force", "-q"]
-    t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-    main = psutil.Process(proc.pid)
-    peak: dict[int, int] = {}
-    while proc.poll() is None:
-        try:
-            for p in [main, *main.children(recursive=True)]:
-                peak[p.pid] = max(peak.get(p.pid, 0), p.memory_info().rss)
-        except psutil.Error:
-            pass
-        time.sleep(0.2)
-    wall = time.perf_counter() - t0
-    if proc.returncode != 0:
-        raise SystemExit(f"{name}: sweep failed ({proc.returncode}): {proc.stderr.read().decode()}")
-    workers_rss = sorted((v / 2**20 for k, v in peak.items() if k != proc.pid), reverse=True)
-    return {"wall_s": wall, "workers": workers, "main_rss_mib": peak.get(proc.pid, 0) / 2**20,
+    wall, peak, code, stderr = run_sampling_memory(cmd)
+    if code != 0:
+        raise SystemExit(f"{name}: sweep failed ({code}): {stderr}")
+    main_pid = next(iter(peak))
+    workers_rss = sorted((v / 2**20 for k, v in peak.items() if k != main_pid), reverse=True)
+    return {"wall_s": wall, "workers": workers, "main_rss_mib": peak[main_pid] / 2**20,
             "largest_worker_rss_mib": workers_rss[0] if workers_rss else float("nan"), "file": str(out)}
 
 
@@ -244,16 +232,6 @@ def markdown(r: dict, command: str) -> str:
     return "\n".join(lines) + "\n"
 
 
-def write_readme(table: str) -> None:
-    path = ROOT / "README.md"
-    text = path.read_text(encoding="utf-8")
-    if README_START not in text or README_END not in text:
-        raise SystemExit(f"README.md lacks the markers {README_START!r} ... {README_END!r}")
-    head, rest = text.split(README_START, 1)
-    _, tail = rest.split(README_END, 1)
-    path.write_text(f"{head}{README_START}\n{table}{README_END}{tail}", encoding="utf-8")
-
-
 def main(argv: list[str] | None = None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--members", type=int, default=10_000)
@@ -282,7 +260,7 @@ def main(argv: list[str] | None = None) -> int:
     if args.readme:
         if args.quick:
             raise SystemExit("--readme needs a full run, not --quick")
-        write_readme(table)
+        write_table("bench_inference", table)
         print("wrote README.md")
     return 0
 

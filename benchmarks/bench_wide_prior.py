@@ -19,15 +19,13 @@ from __future__ import annotations
 
 import argparse
 import json
-import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 import h5py
 import numpy as np
-import psutil
+from child_runs import run_sampling_memory
 
 RANGES = {"log10_p1": (33.8, 35.6), "gamma1": (0.6, 6.0), "gamma2": (0.6, 6.0), "gamma3": (0.6, 6.0)}
 
@@ -52,20 +50,10 @@ def run(members: int, workers: int, folder: Path) -> dict:
     cfg.write_text(config_text(members))
     out = folder / "wide.h5"
     cmd = [sys.executable, "-m", "stellar_match.cli", "sweep", str(cfg), "-o", str(out), "--workers", str(workers)]
-    t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
-    main = psutil.Process(proc.pid)
-    peak: dict[int, int] = {}
-    while proc.poll() is None:
-        try:
-            for p in [main, *main.children(recursive=True)]:
-                peak[p.pid] = max(peak.get(p.pid, 0), p.memory_info().rss)
-        except psutil.Error:
-            pass
-        time.sleep(0.2)
-    wall = time.perf_counter() - t0
-    if proc.returncode != 0:
-        raise SystemExit(f"sweep failed ({proc.returncode}): {proc.stderr.read().decode()}")
+    wall, peak, code, stderr = run_sampling_memory(cmd)
+    if code != 0:
+        raise SystemExit(f"sweep failed ({code}): {stderr}")
+    main_pid = next(iter(peak))
     with h5py.File(out, "r") as f:
         g = f["ensemble"]["wide"]
         status, star_status = g["status"][()], g["star_status"][()]
@@ -78,8 +66,8 @@ def run(members: int, workers: int, folder: Path) -> dict:
         "workers": workers,
         "wall_s": round(wall, 1),
         "members_per_s": round(members / wall, 1),
-        "peak_rss_mib_main": round(peak.get(proc.pid, 0) / 2**20, 1),
-        "peak_rss_mib_workers": sorted(round(v / 2**20, 1) for k, v in peak.items() if k != proc.pid),
+        "peak_rss_mib_main": round(peak[main_pid] / 2**20, 1),
+        "peak_rss_mib_workers": sorted(round(v / 2**20, 1) for k, v in peak.items() if k != main_pid),
         "member_status": {meaning[str(k)]: int((status == k).sum()) for k in np.unique(status)},
         "star_status": {int(k): int((star_status == k).sum()) for k in np.unique(star_status)},
         "ok_members_below_a_stable_star": int(np.sum(ok & ~(m_max >= heaviest_stable * (1 - 1e-6)))),

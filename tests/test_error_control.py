@@ -234,3 +234,23 @@ def test_the_estimate_is_calibrated_neither_blind_nor_far_too_pessimistic():
         assert true <= star.error_estimate[0] <= DEFAULT_TOLERANCE, (eos.parameters, rho)
         ratios.append(true / DEFAULT_TOLERANCE)
     assert 0.01 <= np.median(ratios) <= 1.0, np.quantile(ratios, [0, 0.5, 1])
+
+
+def test_bare_surfaces_with_gamma_above_2_land_on_the_surface():
+    # With Gamma > 2 down to p = 0, d eps/dh diverges (integrably) at the surface and the tidal
+    # equation's error per unit step grows there; such stars once ran out of their step budget.
+    # Reference: solve_ivp DOP853 rtol 1e-11, r-form with the y and Hartle equations
+    # (tests/reference_solutions.py; its closed-form k2 needs C >= 0.05, hence 3e15 g/cm^3).
+    from reference_solutions import tidal_and_inertia_in_radius
+
+    for gamma, K in ((2.3374, 0.021123), (2.9270, 5.5559e-11)):  # stars of the validation report's draws
+        other = sm.polytrope("bare", K, gamma)
+        assert np.all(solve_interiors(other, central_enthalpy(other, "central_density", [3e14, 1e15])).status == 0)
+    eos = sm.polytrope("bare", 3270.95, 2.0519)
+    h = central_enthalpy(eos, "central_density", np.array([3e14, 3e15]))
+    stars = solve_interiors(eos, h)
+    assert np.all(stars.status == 0) and np.all(stars.steps < 1000)
+    R, M, k2, lam, inertia = tidal_and_inertia_in_radius(eos, float(h[1]))
+    for got, ref in ((stars.radius[1], R), (stars.mass[1], M), (stars.tidal_deformability[1], lam),
+                     (stars.moment_of_inertia[1], inertia)):
+        assert got == pytest.approx(ref, rel=DEFAULT_TOLERANCE)

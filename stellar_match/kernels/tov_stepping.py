@@ -82,6 +82,12 @@ SURFACE_GUARD = 1e-12
 JUMP_NEGLIGIBLE = 1e-12
 #: A step may stretch by this factor to land on an edge instead of leaving a sliver before it.
 LANDING_STRETCH = 1.05
+#: Within this fraction of h_c of the surface a step tries to land on it, and is accepted when its error
+#: is below SURFACE_SHARE of the star's target.  With Gamma > 2 in the outermost piece d eps/dh diverges
+#: like h^(1/(Gamma - 1) - 1) at p = 0 (integrable), so the tidal equation's error per unit step grows
+#: towards the surface and the per-unit-step test alone would shrink the steps geometrically forever.
+SURFACE_ZONE = 1e-9
+SURFACE_SHARE = 1e-2
 
 
 @njit(cache=True)
@@ -206,6 +212,7 @@ def _solve_one(h_c, lo, hi, piece_top, piece_type, coeff, jlo, jhi, jump_h, jump
     dh = growth * x0
     attempts = 0
     flag = FLAG_DONE
+    surface_try = SURFACE_ZONE * h_c
     while h > 0.0:
         if attempts >= max_steps:
             flag = FLAG_BUDGET
@@ -219,7 +226,8 @@ def _solve_one(h_c, lo, hi, piece_top, piece_type, coeff, jlo, jhi, jump_h, jump
         if density_cap < math.inf:
             cap = min(cap, density_cap * cs2)
         step = min(dh, cap)
-        landing = h - edge <= LANDING_STRETCH * step
+        at_surface = edge == 0.0 and h <= surface_try
+        landing = at_surface or h - edge <= LANDING_STRETCH * step
         if landing:
             step = h - edge
         h_new = edge if landing else h - step
@@ -253,11 +261,15 @@ def _solve_one(h_c, lo, hi, piece_top, piece_type, coeff, jlo, jhi, jump_h, jump
         if response:
             measure = max(measure, max(err[3], max(err[4], err[5])))
         target = tol_step * step / h_c
+        if at_surface:  # the last step, judged by its share of the whole star's target
+            target = max(target, SURFACE_SHARE * tol_step)
         if not finite or not (measure <= target):
             if step <= MIN_STEP * h_c:
                 flag = FLAG_BUDGET if finite else FLAG_BROKE_DOWN
                 break
             factor = 0.25 if not finite else max(0.2, 0.9 * (target / measure) ** 0.25)
+            if at_surface:  # the landing failed: ordinary steps until a quarter of the way left
+                surface_try = 0.25 * h
             dh = step * factor
             continue
         # accepted: carry the global error over the step (k[0] = f(h, y) still), then take the step
