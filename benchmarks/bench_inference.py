@@ -164,6 +164,7 @@ def measure(members: int, wide_members: int, calls: int, plain_stars: int) -> di
     with tempfile.TemporaryDirectory() as tmp:
         folder = Path(tmp)
         cli_sweep(plain_config(100), 1, folder, "warm")  # the numba cache, compiled once before timing
+        r["start_up"] = cli_sweep(plain_config(200), 2, folder, "tiny") | {"stars": 200}
         r["plain_20000"] = cli_sweep(plain_config(plain_stars // 10), 2, folder, "plain20") | {
             "stars": plain_stars // 10}
         r["plain"] = cli_sweep(plain_config(plain_stars), 2, folder, "plain") | {"stars": plain_stars}
@@ -208,6 +209,8 @@ def markdown(r: dict, command: str) -> str:
          f"{r['plain_20000']['stars_per_s']:,.0f}", "12 900", "not lower; aim for 2x"),
         (f"plain SLy sweep, {r['plain']['stars']} stars, 2 workers: stars/s (the ratios' divisor)",
          f"{r['plain']['stars_per_s']:,.0f}", "", ""),
+        ("start-up: a 200-star sweep, 2 workers, wall time (imports, numba cache, workers, run file)",
+         f"{r['start_up']['wall_s']:.2f} s", "", ""),
         (f"ensemble stars/s / plain stars/s, {m} members x 60 stars", f"{r['ratio_60']:.2f}", "0.36", ">= 0.8"),
         ("the same with 10 stars per member", f"{r['ratio_10']:.2f}", "0.09", ">= 0.5"),
         (f"{m} members x 10 stars, 2 workers", f"{r['ensemble_10']['wall_s']:.1f} s", "135 s", "<= 15 s"),

@@ -191,8 +191,8 @@ def write_sequence(eos: EquationOfState, h_all: np.ndarray, chunks, sink, *, con
         start += n
         sink.append(eos.name, {k: cols[k] for k in columns if k != "stable"})
 
-    def refine(hc):
-        r = solve_interiors(eos, hc, control=control)
+    def refine(hc):  # M and R only: structure-only solves, as an ensemble's maxima (bit-identical to them)
+        r = solve_interiors(eos, hc, control=control, response=False)
         return r.mass, r.radius
 
     def maximise(x_lo, x_hi, x_guess):
