@@ -381,7 +381,7 @@ def parse_config(text: str, *, source: str = "<config>", base_dir: Path | None =
         scale = _number(st.get("step_scale", 1.0), source, "solver.step_scale", positive=True)
         if scale > 4:
             raise _fail(source, "solver.step_scale", f"{scale:g} is too coarse to trust (use <= 4)")
-        # Stars that miss the error tolerance are solved again on finer grids by the
+        # Stars that miss the error tolerance are solved again with smaller steps by the
         # solver's own error control, so a tiny scale never buys accuracy; it only
         # multiplies the time (0.001 with 5 stars ran for minutes).
         if scale < 0.05:

@@ -11,7 +11,7 @@ stays this module (DEVELOPERS.md: never name a module like its function).
 Interior
 --------
 The nodes are the solver's own (:func:`stellar_match.structure.solve_profiles`:
-the grid the star was accepted on, so M, R and M_b are those of a sweep bit
+the steps the star was accepted on, so M, R and M_b are those of a sweep bit
 for bit).  Between consecutive nodes ``refine`` more points are placed evenly
 in h, where the state (u = r^2, v = m/r^3, w = m_b/r^3, omega-bar, psi) is
 the cubic Hermite interpolant of its node values and its derivatives d/dh

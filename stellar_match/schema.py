@@ -114,7 +114,7 @@ RADIAL_MODE_2D = ("radial_omega_squared", "radial_frequency")
 #: Per-star status codes (dataset ``star_status``); every non-zero code comes with NaN physics columns.
 STAR_STATUS: dict[int, str] = {
     0: "ok: error estimate within tolerance",
-    1: "tolerance not met on the finest grid the step budget allows",
+    1: "tolerance not met within the step budget (attempted steps, and re-solves of the star alone)",
     2: "integration broke down (non-finite state)",
     3: "no bound star (mass or radius not positive, or 2GM/(Rc^2) beyond the Buchdahl bound 8/9)",
     4: "not solved: its ensemble member failed before the solve (see the member status)",
